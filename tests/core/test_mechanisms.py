@@ -1,0 +1,269 @@
+"""One contract test over every mechanism: exact lotteries, strategy-proofness, guarantees."""
+
+from __future__ import annotations
+
+from fractions import Fraction
+
+import numpy as np
+import pandas as pd
+import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+
+from core_support import FEATURES, core_objects
+from oracle import Instance, all_reports, enumerate_rules, erm, global_risk, private_risk
+from strategies import instances
+from truthsieve.core import MECHANISMS, build_label_matrix, build_rule_class, fit_consensus, run_mechanism
+from truthsieve.exceptions import MechanismError, NoItemsError, NoSourcesError, UnknownReferenceError, WeightError
+
+STRATEGY_PROOF = [m for m in MECHANISMS if m != "erm"]
+
+
+def kinds_for(mechanism: str) -> list[str]:
+    return ["constant"] if mechanism.startswith("two_rule") else ["constant", "threshold", "listed"]
+
+
+CASES = [(m, k) for m in MECHANISMS for k in kinds_for(m)]
+SP_CASES = [(m, k) for m, k in CASES if m != "erm"]
+
+
+def labelling_of(rule_class, rule: int) -> tuple[int, ...]:
+    return tuple(rule_class.predict(rule).astype(int))
+
+
+def expected_private_risk(instance: Instance, mechanism: str, kind: str, source: str, truth) -> float:
+    matrix, rule_class = core_objects(instance, kind)
+    result = run_mechanism(mechanism, matrix, rule_class)
+    return sum(
+        e.probability * float(private_risk(instance, source, labelling_of(rule_class, e.rule), truth))
+        for e in result.lottery
+    )
+
+
+@pytest.mark.parametrize(("mechanism", "kind"), CASES)
+@given(data=st.data())
+def test_lottery_is_exact(mechanism, kind, data):
+    instance = data.draw(instances(kind=kind))
+    matrix, rule_class = core_objects(instance, kind)
+    result = run_mechanism(mechanism, matrix, rule_class)
+    assert sum(e.probability for e in result.lottery) == pytest.approx(1.0, abs=1e-12)
+    assert all(e.probability >= 0 for e in result.lottery)
+    exact = sum(
+        (Fraction(e.probability) * global_risk(instance, labelling_of(rule_class, e.rule)) for e in result.lottery),
+        Fraction(0),
+    )
+    assert result.expected_risk == pytest.approx(float(exact), abs=1e-12)
+    optimum = erm(instance, kind, FEATURES)[2]
+    if optimum > 0:
+        assert result.ratio == pytest.approx(float(exact / optimum), rel=1e-9)
+
+
+@pytest.mark.parametrize(("mechanism", "kind"), SP_CASES)
+@given(data=st.data())
+def test_no_source_gains_by_any_report(mechanism, kind, data):
+    """Exhaustive misreport search: every source, every possible report on its items."""
+    instance = data.draw(instances(kind=kind, max_sources=3, max_items=4))
+    for source in instance.sources:
+        truth = instance.labels[source]
+        truthful = expected_private_risk(instance, mechanism, kind, source, truth)
+        for report in all_reports(instance, source):
+            lied = expected_private_risk(instance.with_report(source, report), mechanism, kind, source, truth)
+            assert lied >= truthful - 1e-12, (source, report)
+
+
+def manipulable_instance() -> Instance:
+    # Five shared lots, three equally weighted graders. Hand calculation:
+    # R(all-1) = (2/5 + 1 + 2/5)/3 = 3/5, R(all-0) = (3/5 + 0 + 3/5)/3 = 2/5, so ERM rejects all.
+    # If src-0 reports all-1: R(all-1) = (0 + 1 + 2/5)/3 = 7/15 < R(all-0) = 8/15, ERM accepts all,
+    # src-0's true risk falls from 3/5 to 2/5 and the true global risk rises from 2/5 to 3/5.
+    return Instance(
+        n_items=5,
+        labels={
+            "src-0": dict(enumerate([1, 1, 1, 0, 0])),
+            "src-1": dict(enumerate([0, 0, 0, 0, 0])),
+            "src-2": dict(enumerate([1, 1, 1, 0, 0])),
+        },
+        source_weights={"src-0": 1, "src-1": 1, "src-2": 1},
+        item_weights=(1, 1, 1, 1, 1),
+    )
+
+
+def test_erm_is_manipulable_on_a_hand_computed_instance():
+    instance = manipulable_instance()
+    matrix, rule_class = core_objects(instance, "constant")
+    truthful = run_mechanism("erm", matrix, rule_class)
+    assert rule_class.describe(truthful.lottery[0].rule) == {"kind": "constant", "label": 0}
+    assert truthful.expected_risk == pytest.approx(2 / 5)
+    lie_matrix, _ = core_objects(instance.with_report("src-0", dict(enumerate([1] * 5))), "constant")
+    lied = run_mechanism("erm", lie_matrix, rule_class)
+    assert rule_class.describe(lied.lottery[0].rule) == {"kind": "constant", "label": 1}
+    truth = instance.labels["src-0"]
+    assert private_risk(instance, "src-0", (1,) * 5, truth) == Fraction(2, 5) < Fraction(3, 5)
+    assert global_risk(instance, (1,) * 5) == Fraction(3, 5) > Fraction(2, 5)
+
+
+@pytest.mark.parametrize(("mechanism", "kind"), [c for c in CASES if c[0] != "erm"])
+@given(data=st.data())
+def test_worst_case_guarantee_holds(mechanism, kind, data):
+    shared = None if mechanism.startswith("two_rule") else True
+    instance = data.draw(instances(kind=kind, max_sources=5, max_items=6, shared=shared))
+    matrix, rule_class = core_objects(instance, kind)
+    result = run_mechanism(mechanism, matrix, rule_class)
+    assert result.guarantee_applies
+    if result.ratio is not None:
+        assert result.ratio <= result.guarantee + 1e-9
+    else:
+        pytest.fail("positive expected risk with a zero consensus risk breaks every guarantee")
+
+
+@given(data=st.data())
+def test_dictator_guarantees_match_the_published_closed_forms(data):
+    instance = data.draw(instances(kind="constant", max_sources=6, shared=True))
+    matrix, rule_class = core_objects(instance, "constant")
+    w = matrix.source_weights
+    n = len(w)
+    if n == 1:
+        return
+    # Meir, Procaccia, Rosenschein, "Algorithms for strategyproof classification",
+    # Artificial Intelligence 186, 2012: 3 - 2/n for the uniform dictator with equal weights.
+    tuned = run_mechanism("tuned_dictator", matrix, rule_class).guarantee
+    assert tuned == pytest.approx(1 + 2 / float(np.sum(w / (1 - w))))
+    assert run_mechanism("weighted_dictator", matrix, rule_class).guarantee == pytest.approx(3 - 2 * w.min())
+    if np.allclose(w, w[0]):
+        assert run_mechanism("random_dictator", matrix, rule_class).guarantee == pytest.approx(3 - 2 / n)
+        assert tuned == pytest.approx(3 - 2 / n)
+
+
+def tight_dictator_family(weights: list[int], mechanism: str, size: int) -> Instance:
+    """Shared-input family whose ratio approaches the dictator bound as ``size`` grows.
+
+    The consensus is the all-0 listed rule. Only the source ``k`` maximising
+    ``p_k (1 - w_k) / w_k`` disagrees with it, on ``size`` lots ``A``; its own best
+    rule accepts ``A`` and ``size - 1`` further lots ``B`` that everyone else rejects,
+    so the triangle inequality behind the bound is tight up to the ``-1``. Our own
+    construction.
+    """
+    n = len(weights)
+    total = sum(weights)
+    w = [x / total for x in weights]
+    probabilities = {
+        "random_dictator": [1 / n] * n,
+        "weighted_dictator": w,
+        "tuned_dictator": [x / (1 - x) / sum(y / (1 - y) for y in w) for x in w],
+    }[mechanism]
+    k = max(range(n), key=lambda i: probabilities[i] * (1 - w[i]) / w[i])
+    m = 2 * size - 1 + 1  # A, B and one lot everyone rejects
+    labels = {f"src-{i}": {j: 0 for j in range(m)} for i in range(n)}
+    labels[f"src-{k}"].update({j: 1 for j in range(size)})
+    own = tuple(j < 2 * size - 1 for j in range(m))
+    return Instance(
+        n_items=m,
+        labels=labels,
+        source_weights={f"src-{i}": weights[i] for i in range(n)},
+        item_weights=(1,) * m,
+        listed={"all_reject": (False,) * m, "accept_a_and_b": own},
+    )
+
+
+@pytest.mark.parametrize(
+    ("mechanism", "weights"),
+    [("random_dictator", [1, 1, 1]), ("random_dictator", [1, 1, 1, 1, 1]), ("weighted_dictator", [1, 2, 3]), ("tuned_dictator", [1, 2, 5])],
+)
+def test_dictator_bound_is_approached_on_a_tight_family(mechanism, weights):
+    ratios = []
+    for size in (5, 50, 500):
+        matrix, rule_class = core_objects(tight_dictator_family(weights, mechanism, size), "listed")
+        result = run_mechanism(mechanism, matrix, rule_class)
+        ratios.append(result.ratio)
+        assert result.ratio <= result.guarantee + 1e-12
+    assert ratios[0] < ratios[1] < ratios[2]
+    assert ratios[2] > result.guarantee - 0.01
+
+
+def test_two_rule_bounds_are_reached():
+    # Vote: weight 1/2+e votes 1 with q slightly above 1/2, the rest are all-0 (our own construction).
+    # R(1) ~ (1/2)(1/2) + 1/2 = 3/4, R(0) ~ (1/2)(1/2) = 1/4: ratio -> 3 ("a tale of two functions", AAAI 2008).
+    # Lottery at t = 1/2: P(all-1) = 1/2; R(1) = 3/4, R(0) = 1/4, expected = 1/2: ratio 2.
+    def batch(q_ones: int, m: int, w_voter: int, w_other: int) -> Instance:
+        return Instance(
+            n_items=m,
+            labels={"a": {j: int(j < q_ones) for j in range(m)}, "b": {j: 0 for j in range(m)}},
+            source_weights={"a": w_voter, "b": w_other},
+            item_weights=(1,) * m,
+        )
+
+    votes, lotteries = [], []
+    for m in (10, 100, 1000):
+        vote = run_mechanism("two_rule_vote", *core_objects(batch(m // 2 + 1, m, m + 1, m - 1), "constant"))
+        lottery = run_mechanism("two_rule_lottery", *core_objects(batch(m // 2 + 1, m, 1, 1), "constant"))
+        assert vote.ratio <= 3 and lottery.ratio <= 2
+        votes.append(vote.ratio)
+        lotteries.append(lottery.ratio)
+    assert votes == sorted(votes) and votes[-1] > 2.98
+    assert lotteries == sorted(lotteries) and lotteries[-1] > 1.98
+
+
+@pytest.mark.parametrize("mechanism", MECHANISMS)
+def test_single_source_gets_ratio_one(mechanism):
+    instance = Instance(n_items=3, labels={"solo": {0: 1, 1: 1, 2: 0}}, source_weights={"solo": 2}, item_weights=(1, 1, 1))
+    result = run_mechanism(mechanism, *core_objects(instance, "constant"))
+    assert result.ratio == pytest.approx(1.0) and result.guarantee == 1.0 or mechanism.startswith("two_rule")
+
+
+@pytest.mark.parametrize("mechanism", MECHANISMS)
+@given(data=st.data(), seed=st.integers(0, 2**32 - 1))
+def test_invariant_to_row_order_and_source_renaming(mechanism, data, seed):
+    kind = "constant" if mechanism.startswith("two_rule") else "threshold"
+    instance = data.draw(instances(kind=kind))
+    labels, items = instance.frames()
+    rng = np.random.default_rng(seed)
+    matrix = build_label_matrix(labels, items, instance.source_weights)
+    rule_class = build_rule_class(kind, items, matrix.item_ids, FEATURES)
+    base = run_mechanism(mechanism, matrix, rule_class)
+
+    # Renaming keeps the sorted order of sources so lottery entries line up by position.
+    rename = {s: f"renamed-{k:02d}" for k, s in enumerate(sorted(instance.source_weights))}
+    shuffled = labels.sample(frac=1.0, random_state=rng).replace({"source_id": rename})
+    items_shuffled = items.sample(frac=1.0, random_state=rng)
+    matrix2 = build_label_matrix(shuffled, items_shuffled, {rename[s]: w for s, w in instance.source_weights.items()})
+    rule_class2 = build_rule_class(kind, items_shuffled, matrix2.item_ids, FEATURES)
+    other = run_mechanism(mechanism, matrix2, rule_class2)
+    assert [rule_class.describe(e.rule) for e in base.lottery] == [rule_class2.describe(e.rule) for e in other.lottery]
+    assert [e.probability for e in base.lottery] == pytest.approx([e.probability for e in other.lottery])
+    assert [e.source_id and rename[e.source_id] for e in base.lottery] == [e.source_id for e in other.lottery]
+    assert base.expected_risk == pytest.approx(other.expected_risk)
+
+
+@given(data=st.data(), scale=st.integers(2, 50))
+def test_weights_are_scale_invariant(data, scale):
+    instance = data.draw(instances(kind="threshold"))
+    labels, items = instance.frames()
+    a = build_label_matrix(labels, items, instance.source_weights)
+    b = build_label_matrix(labels, items, {s: w * scale for s, w in instance.source_weights.items()})
+    np.testing.assert_allclose(a.source_weights, b.source_weights)
+
+
+def test_two_rule_mechanism_on_another_class_raises():
+    instance = Instance(n_items=2, labels={"a": {0: 1, 1: 0}}, source_weights={"a": 1}, item_weights=(1, 1), features={"moisture_pct": (1.0, 2.0), "falling_number_s": (1.0, 1.0)})
+    with pytest.raises(MechanismError, match="constant rule class"):
+        run_mechanism("two_rule_lottery", *core_objects(instance, "threshold"))
+    with pytest.raises(MechanismError, match="unknown mechanism"):
+        run_mechanism("median_voter", *core_objects(instance, "threshold"))
+
+
+@pytest.mark.parametrize(
+    ("labels", "items", "weights", "error"),
+    [
+        (pd.DataFrame(columns=["item_id", "source_id", "label"]), pd.DataFrame({"item_id": ["a"]}), {}, NoSourcesError),
+        (pd.DataFrame({"item_id": ["a"], "source_id": ["s"], "label": [1]}), pd.DataFrame({"item_id": []}), {"s": 1}, NoItemsError),
+        (pd.DataFrame({"item_id": ["a"], "source_id": ["s"], "label": [1]}), pd.DataFrame({"item_id": ["a"]}), {"s": 0}, WeightError),
+        (pd.DataFrame({"item_id": ["a"], "source_id": ["s"], "label": [1]}), pd.DataFrame({"item_id": ["a"]}), {"s": -2}, WeightError),
+        (pd.DataFrame({"item_id": ["a"], "source_id": ["s"], "label": [1]}), pd.DataFrame({"item_id": ["a"]}), {}, UnknownReferenceError),
+        (pd.DataFrame({"item_id": ["z"], "source_id": ["s"], "label": [1]}), pd.DataFrame({"item_id": ["a"]}), {"s": 1}, UnknownReferenceError),
+        (pd.DataFrame({"item_id": ["a"], "source_id": ["s"], "label": [1]}), pd.DataFrame({"item_id": ["a"], "item_weight": [0.0]}), {"s": 1}, NoItemsError),
+        (pd.DataFrame({"item_id": ["a"], "source_id": ["s"], "label": [1]}), pd.DataFrame({"item_id": ["a"], "item_weight": [-1.0]}), {"s": 1}, WeightError),
+    ],
+)
+def test_impossible_inputs_raise_specific_errors(labels, items, weights, error):
+    with pytest.raises(error):
+        build_label_matrix(labels, items, weights)

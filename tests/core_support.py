@@ -1,0 +1,16 @@
+"""Build the core's objects from an oracle :class:`Instance`."""
+
+from __future__ import annotations
+
+from truthsieve.core import build_label_matrix, build_rule_class
+
+from oracle import Instance
+
+FEATURES = ["moisture_pct", "falling_number_s"]
+
+
+def core_objects(instance: Instance, kind: str):
+    labels, items = instance.frames()
+    matrix = build_label_matrix(labels, items, instance.source_weights)
+    rule_class = build_rule_class(kind, items, matrix.item_ids, FEATURES if kind == "threshold" else ())
+    return matrix, rule_class
