@@ -132,7 +132,7 @@ def rng_instance(rng: np.random.Generator, n_sources: int, n_items: int, shared:
     features = {}
     listed = {}
     if kind == "threshold":
-        features = {f: tuple(float(v) for v in rng.integers(0, 4, n_items)) for f in ("moisture_pct", "protein_pct")}
+        features = {f: tuple(float(v) for v in rng.integers(0, 4, n_items)) for f in ("moisture_pct", "falling_number_s")}
     if kind == "listed":
         listed = {f"r{k}": tuple(bool(v) for v in rng.integers(0, 2, n_items)) for k in range(int(rng.integers(1, 5)))}
     return Instance(

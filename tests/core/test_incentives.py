@@ -1,0 +1,91 @@
+"""Gain from misreporting under the consensus fit, against exhaustive search over every report."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+
+from core_support import FEATURES, core_objects
+from oracle import exhaustive_erm_gain, rng_instance
+from strategies import instances
+from test_mechanisms import manipulable_instance
+from truthsieve.core import fit_consensus, incentives, source_incentive
+
+
+def analyse(instance, kind, budget=None):
+    matrix, rule_class = core_objects(instance, kind)
+    consensus = fit_consensus(matrix, rule_class)
+    return matrix, rule_class, consensus, incentives(matrix, rule_class, consensus, budget=budget)
+
+
+@pytest.mark.parametrize("kind", ["constant", "threshold", "listed"])
+@given(data=st.data())
+def test_exact_gain_equals_exhaustive_search(kind, data):
+    instance = data.draw(instances(kind=kind, max_sources=3, max_items=5))
+    _, _, _, results = analyse(instance, kind, budget=None)
+    for result in results:
+        assert result.gain_exact
+        expected = exhaustive_erm_gain(instance, kind, FEATURES, result.source_id)
+        assert result.gain_lower == pytest.approx(float(expected), abs=1e-12)
+        assert result.gain_upper == pytest.approx(float(expected), abs=1e-12)
+
+
+@pytest.mark.parametrize("seed", range(40))
+def test_brackets_contain_the_exhaustive_gain_under_a_tight_budget(seed):
+    rng = np.random.default_rng(seed)
+    instance = rng_instance(rng, n_sources=int(rng.integers(2, 4)), n_items=6, shared=bool(seed % 2), kind="threshold")
+    _, _, _, tight = analyse(instance, "threshold", budget=1)
+    for result in tight:
+        expected = float(exhaustive_erm_gain(instance, "threshold", FEATURES, result.source_id))
+        assert result.gain_lower - 1e-12 <= expected <= result.gain_upper + 1e-12
+        if result.gain_exact:
+            assert result.gain_lower == pytest.approx(expected, abs=1e-12)
+        else:
+            assert result.gain_upper > result.gain_lower
+
+
+@pytest.mark.parametrize("kind", ["constant", "threshold", "listed"])
+@given(data=st.data())
+def test_lie_towards_the_target_reaches_it_and_costs_at_least_the_lower_bound(kind, data):
+    instance = data.draw(instances(kind=kind, max_sources=3, max_items=5))
+    matrix, rule_class, consensus, results = analyse(instance, kind)
+    for result in results:
+        assert 0.0 <= result.lie_weight_lower <= result.lie_weight_upper + 1e-12
+        assert result.damage >= 0.0
+        if result.gain_lower > 0:
+            assert result.lie_weight_upper > 0
+
+
+def test_hand_computed_gain_on_the_manipulable_instance():
+    # See manipulable_instance: src-0's risk falls from 3/5 to 2/5 by lying, a gain of 1/5.
+    # Each of its 0-labels flipped to 1 moves R(all-0) - R(all-1) by 2/15, starting at -1/5:
+    # one flip leaves -1/15, two give +1/15, so the cheapest lie flips 2 lots; the margin
+    # bound is (1/5) * 5 / (2/3) = 3/2. The lie raises the global risk from 2/5 to 3/5.
+    _, rule_class, _, results = analyse(manipulable_instance(), "constant")
+    first = results[0]
+    assert first.source_id == "src-0"
+    assert first.gain_exact
+    assert first.gain_lower == pytest.approx(1 / 5)
+    assert rule_class.describe(first.target_rule) == {"kind": "constant", "label": 1}
+    assert first.lie_weight_lower == pytest.approx(3 / 2)
+    assert first.lie_weight_upper == pytest.approx(2)
+    assert first.damage == pytest.approx(1 / 5)
+    # src-1 already gets its preferred rule: nothing to gain.
+    assert results[1].gain_upper == 0.0
+
+
+def test_sources_own_erm_is_reported():
+    matrix, rule_class, consensus, results = analyse(manipulable_instance(), "constant")
+    assert [r.own_best_risk for r in results] == pytest.approx([2 / 5, 0.0, 2 / 5])
+    assert [r.disagreement for r in results] == pytest.approx([3 / 5, 0.0, 3 / 5])
+
+
+def test_budget_zero_reports_a_bracket_not_an_exact_value():
+    instance = rng_instance(np.random.default_rng(7), n_sources=3, n_items=6, shared=True, kind="threshold")
+    matrix, rule_class = core_objects(instance, "threshold")
+    consensus = fit_consensus(matrix, rule_class)
+    for i in range(matrix.n_sources):
+        result = source_incentive(matrix, rule_class, consensus, i, budget=0)
+        assert result.gain_exact == (result.gain_upper == result.gain_lower)
