@@ -128,7 +128,8 @@ class ThresholdRules(RuleClass):
             below1 = np.cumsum(cost1[feature.order])[feature.split_after - 1]
             out[start : start + 2 * len(feature.cuts) : 2] = below1 + (total0 - below0)  # above=0
             out[start + 1 : start + 2 * len(feature.cuts) : 2] = below0 + (total1 - below1)  # above=1
-        return out
+        # Prefix-sum differences can round a zero risk to -1e-17.
+        return np.maximum(out, 0.0, out=out)
 
     def locate(self, index: int) -> tuple[_SortedFeature, int, int]:
         """(feature, cut position, above label) of a non-constant rule."""
@@ -165,7 +166,7 @@ class ListedRules(RuleClass):
         self.size = len(names)
 
     def risks(self, cost0, cost1):
-        return cost0.sum() + (cost1 - cost0) @ self.table
+        return np.maximum(cost0.sum() + (cost1 - cost0) @ self.table, 0.0)
 
     def predict(self, index):
         return self.table[:, index].copy()

@@ -1,0 +1,33 @@
+# Two entry points for a newcomer: `make demo` and `make test`. Both set up .venv first.
+VENV   := .venv
+PYTHON := $(VENV)/bin/python
+STAMP  := $(VENV)/.installed
+
+.PHONY: setup demo test test-fast bench lock clean
+
+setup: $(STAMP)
+
+$(STAMP): pyproject.toml requirements.lock
+	python3 -m pip install --quiet --disable-pip-version-check uv
+	test -x $(PYTHON) || python3 -m uv venv --quiet -p python3.11 $(VENV)
+	VIRTUAL_ENV=$(VENV) python3 -m uv pip install --quiet -r requirements.lock
+	VIRTUAL_ENV=$(VENV) python3 -m uv pip install --quiet --no-deps -e .
+	touch $(STAMP)
+
+demo: setup
+	$(VENV)/bin/truthsieve demo --out out/demo
+
+test: setup
+	$(PYTHON) -m pytest -q
+
+test-fast: setup
+	$(PYTHON) -m pytest -q -m "not airflow and not browser and not slow"
+
+bench: setup
+	$(PYTHON) bench/run.py
+
+lock:
+	python3 -m uv pip compile pyproject.toml --extra airflow --extra test -p 3.11 -o requirements.lock
+
+clean:
+	rm -rf $(VENV) out .pytest_cache .hypothesis

@@ -1,0 +1,174 @@
+"""``truthsieve``: screen one night, backfill a range of nights, or run the built-in demo.
+
+Exit codes: 0 a decision was written for every requested night (either route);
+2 bad configuration or no batch to screen; 3 a batch date is locked by another run;
+1 any other failure. No decision is ever half-written.
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime as dt
+import json
+import sys
+from collections.abc import Sequence
+from pathlib import Path
+
+from truthsieve import __version__
+from truthsieve.exceptions import BatchLockedError, InputError
+
+EXIT_OK, EXIT_FAILURE, EXIT_INPUT, EXIT_LOCKED = 0, 1, 2, 3
+
+
+def _date(text: str) -> str:
+    try:
+        return dt.date.fromisoformat(text).isoformat()
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a date of the form YYYY-MM-DD") from None
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="truthsieve",
+        description="Screen nightly multi-source label batches before they shape a shared decision rule.",
+        epilog="Exit codes: 0 decision(s) written; 2 bad configuration or missing batch; 3 batch locked; 1 other failure.",
+    )
+    parser.add_argument("--version", action="version", version=f"truthsieve {__version__}")
+    commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    screen = commands.add_parser("screen", help="screen one night's batch and publish its decision")
+    screen.add_argument("--inbox", required=True, type=Path, help="inbox root holding batch_date=YYYY-MM-DD/ folders")
+    screen.add_argument("--date", required=True, type=_date, help="batch date, YYYY-MM-DD")
+    screen.add_argument("--config", required=True, type=Path, help="YAML configuration file")
+    screen.add_argument("--out", required=True, type=Path, help="output root")
+    screen.add_argument("--lock-timeout", type=float, default=600.0, help="seconds to wait for another run of the same date (default 600)")
+    screen.add_argument("--json", action="store_true", help="print the decision as JSON instead of the summary")
+
+    backfill = commands.add_parser("backfill", help="screen every night of a date range, oldest first")
+    backfill.add_argument("--inbox", required=True, type=Path)
+    backfill.add_argument("--from", dest="first", required=True, type=_date, help="first batch date, YYYY-MM-DD")
+    backfill.add_argument("--to", dest="last", required=True, type=_date, help="last batch date, YYYY-MM-DD (inclusive)")
+    backfill.add_argument("--config", required=True, type=Path)
+    backfill.add_argument("--out", required=True, type=Path)
+    backfill.add_argument("--lock-timeout", type=float, default=600.0)
+
+    demo = commands.add_parser("demo", help="generate the grain cooperative demo (if missing) and backfill its 14 nights")
+    demo.add_argument("--out", type=Path, default=Path("out/demo"), help="output root (default out/demo)")
+    demo.add_argument("--inbox", type=Path, default=None, help="demo inbox (default: <out>-inbox)")
+    return parser
+
+
+def summary(decision: dict, output: Path) -> str:
+    """One screen of text: route, reasons, lottery, drawn rule, flagged sources, outputs."""
+    from truthsieve.pipeline.report import rule_text
+
+    lines = [f"batch {decision['batch_date']}: route {decision['route'].upper()}"]
+    for reason in decision["reasons"]:
+        mark = "!" if reason["blocking"] else "-"
+        lines.append(f"  {mark} [{reason['code']}] {reason['message']}")
+    mechanism = decision["mechanism"]
+    if mechanism:
+        lines.append(f"  consensus: {rule_text(decision['consensus']['rule'])} (risk {decision['consensus']['risk']:.4f})")
+        ratio = "n/a" if mechanism["ratio"] is None else f"{mechanism['ratio']:.3f}"
+        lines.append(
+            f"  {mechanism['name']}: {len(mechanism['lottery'])} entries, expected risk {mechanism['expected_risk']:.4f}, "
+            f"ratio {ratio} (guarantee {mechanism['guarantee']:.3f}{'' if mechanism['guarantee_applies'] else ', not applicable'})"
+        )
+        for entry in mechanism["lottery"]:
+            lines.append(f"      p={entry['probability']:.3f}  {entry['source_id'] or '-':<14} {rule_text(entry['rule'])}")
+        draw = decision["draw"]
+        lines.append(f"  drawn (u={draw['u']:.6f}): {draw['source_id'] or '-'}: {rule_text(draw['rule'])}")
+    flagged = [f"{s['source_id']} ({', '.join(s['flags'])})" for s in decision["sources"] if s["flags"]]
+    lines.append(f"  flagged: {'; '.join(flagged) if flagged else 'none'}")
+    for q in decision["quarantined"]:
+        lines.append(f"  quarantined: {q['source_id'] or 'items table'}: {len(q['files'])} file(s)")
+    lines.append(f"  outputs: {output}")
+    return "\n".join(lines)
+
+
+def _progress(done: int, total: int, label: str) -> None:
+    width = 28
+    filled = width * done // max(total, 1)
+    sys.stderr.write(f"\r[{'#' * filled}{'.' * (width - filled)}] {done}/{total} {label:<12}")
+    if done == total:
+        sys.stderr.write("\n")
+    sys.stderr.flush()
+
+
+def write_index(out: Path) -> Path:
+    from truthsieve.pipeline.outputs import write_atomic
+    from truthsieve.pipeline.report import render_index
+
+    decisions = [json.loads(p.read_text()) for p in sorted(out.glob("batch_date=*/decision.json"))]
+    path = out / "index.html"
+    write_atomic(path, render_index(decisions).encode())
+    return path
+
+
+def backfill(inbox: Path, dates: Sequence[str], config_path: Path | None, out: Path, lock_timeout: float, config=None) -> int:
+    from truthsieve.pipeline.config import load_config
+    from truthsieve.pipeline.screen import screen
+
+    config = config or load_config(config_path)
+    present = [d for d in dates if (inbox / f"batch_date={d}").is_dir()]
+    if not present:
+        print(f"error: no batch folders under {inbox} for {dates[0]} to {dates[-1]}", file=sys.stderr)
+        return EXIT_INPUT
+    results = []
+    for k, date in enumerate(present):
+        _progress(k, len(present), date)
+        results.append(screen(inbox, date, config, out, lock_timeout))
+    _progress(len(present), len(present), "done")
+    index = write_index(out)
+    routes = [r.route for r in results]
+    print(f"{len(results)} nights screened: {routes.count('aggregate')} aggregated, {routes.count('review')} to review")
+    for result in results:
+        flags = sum(1 for s in result.decision["sources"] if s["flags"])
+        print(f"  {result.batch_date}  {result.route:<9}  flagged sources: {flags}")
+    print()
+    print(summary(results[-1].decision, results[-1].output))
+    print(f"\nlast report: {results[-1].output / 'report.html'}")
+    print(f"history:     {index}")
+    return EXIT_OK
+
+
+def run(argv: Sequence[str] | None = None) -> int:
+    args = build_parser().parse_args(argv)
+    from truthsieve.pipeline.config import load_config
+    from truthsieve.pipeline.screen import screen
+
+    if args.command == "screen":
+        result = screen(args.inbox, args.date, load_config(args.config), args.out, args.lock_timeout)
+        write_index(args.out)
+        print(json.dumps(result.decision, sort_keys=True, indent=2) if args.json else summary(result.decision, result.output))
+        return EXIT_OK
+    if args.command == "backfill":
+        first, last = dt.date.fromisoformat(args.first), dt.date.fromisoformat(args.last)
+        if last < first:
+            print("error: --to is before --from", file=sys.stderr)
+            return EXIT_INPUT
+        dates = [(first + dt.timedelta(days=k)).isoformat() for k in range((last - first).days + 1)]
+        return backfill(args.inbox, dates, args.config, args.out, args.lock_timeout)
+    from truthsieve.pipeline import demo
+
+    inbox = args.inbox or args.out.with_name(args.out.name + "-inbox")
+    if not (inbox / f"batch_date={demo.night_dates()[-1]}").is_dir():
+        print(f"generating the demo inbox in {inbox}")
+        demo.generate_inbox(inbox)
+    dates = demo.night_dates()
+    return backfill(inbox, dates, None, args.out, 600.0, config=demo.demo_config())
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    try:
+        return run(argv)
+    except BatchLockedError as error:
+        print(f"error: {error}", file=sys.stderr)
+        return EXIT_LOCKED
+    except InputError as error:
+        print(f"error: {error}", file=sys.stderr)
+        return EXIT_INPUT
+
+
+if __name__ == "__main__":
+    sys.exit(main())

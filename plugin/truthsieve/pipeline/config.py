@@ -1,0 +1,145 @@
+"""The YAML configuration, validated once at the edge with pydantic."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Literal
+
+import yaml
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
+
+from truthsieve.core.mechanisms import MECHANISMS
+from truthsieve.core.source_checks import FLAG_CODES, FlagThresholds
+from truthsieve.exceptions import ConfigError
+
+SOURCE_ID_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$"
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class RuleClassConfig(_Strict):
+    """``rule_class``: which rules the consensus and the dictators choose from."""
+
+    kind: Literal["constant", "threshold", "listed"]
+    features: list[str] = Field(default_factory=list, description="threshold features, in tie-break order")
+
+    @model_validator(mode="after")
+    def _features_for_threshold(self):
+        if self.kind == "threshold" and not self.features:
+            raise ValueError("rule_class.kind 'threshold' needs a non-empty 'features' list")
+        return self
+
+
+class SourceEntry(_Strict):
+    """One registered source: its id, registry weight and owner's e-mail address."""
+
+    source_id: str = Field(pattern=SOURCE_ID_PATTERN)
+    weight: float = Field(gt=0, allow_inf_nan=False)
+    owner: str | None = None
+
+
+class RoutingPolicy(_Strict):
+    """``routing``: when a batch may go to the strategy-proof aggregation step.
+
+    A batch is aggregated only when every check passes; otherwise it goes to review and
+    the previously published rule stays in force.
+    """
+
+    min_valid_sources: int = Field(2, ge=1, description="fewer valid sources than this: review")
+    max_invalid_sources: int = Field(0, ge=0, description="more quarantined sources than this: review")
+    max_ratio: float = Field(2.0, ge=1.0, description="mechanism's expected risk / consensus risk above this: review")
+    review_on_flags: list[str] = Field(default_factory=lambda: list(FLAG_CODES), description="flags that send a batch to review")
+    rule_shape_tolerance: float = Field(0.01, ge=0, le=1)
+    rule_shape_min_disagreement: float = Field(0.05, ge=0, le=1)
+    max_disagreement: float = Field(0.2, ge=0, le=1)
+    min_balanced_accuracy: float = Field(0.8, ge=0, le=1)
+    min_kappa: float = Field(0.5, ge=-1, le=1)
+    max_gain: float = Field(0.05, ge=0, le=1)
+    drift_alpha: float = Field(0.01, gt=0, lt=1)
+    drift_window: int = Field(7, ge=1, description="earlier batches pooled as each source's history")
+    confidence: float = Field(0.95, gt=0, lt=1, description="level of the Wilson intervals")
+
+    @field_validator("review_on_flags")
+    @classmethod
+    def _known_flags(cls, value):
+        unknown = sorted(set(value) - set(FLAG_CODES))
+        if unknown:
+            raise ValueError(f"unknown flag codes {unknown}; known: {list(FLAG_CODES)}")
+        return value
+
+    def thresholds(self) -> FlagThresholds:
+        return FlagThresholds(
+            rule_shape_tolerance=self.rule_shape_tolerance,
+            rule_shape_min_disagreement=self.rule_shape_min_disagreement,
+            max_disagreement=self.max_disagreement,
+            min_balanced_accuracy=self.min_balanced_accuracy,
+            min_kappa=self.min_kappa,
+            max_gain=self.max_gain,
+            drift_alpha=self.drift_alpha,
+            confidence=self.confidence,
+        )
+
+
+class AnalysisSettings(_Strict):
+    """``analysis``: numerical settings of the estimators."""
+
+    dawid_skene_tolerance: float = Field(1e-6, gt=0)
+    dawid_skene_max_iterations: int = Field(200, ge=1)
+    incentive_budget: int = Field(64, ge=0, description="reachability checks per source (threshold class)")
+    sample_epsilon: float = Field(0.05, gt=0, lt=1, description="items_needed: accuracy of every risk estimate")
+    sample_delta: float = Field(0.05, gt=0, lt=1, description="items_needed: failure probability")
+
+
+class AlertSettings(_Strict):
+    """``alerts``: who hears about flagged sources (the SMTP server is an Airflow connection)."""
+
+    platform_address: str | None = None
+    smtp_conn_id: str = "smtp_default"
+    from_address: str = "truthsieve@localhost"
+
+
+class Config(_Strict):
+    rule_class: RuleClassConfig
+    mechanism: Literal[MECHANISMS]  # type: ignore[valid-type]
+    sources: list[SourceEntry] = Field(min_length=1)
+    routing: RoutingPolicy = Field(default_factory=RoutingPolicy)
+    analysis: AnalysisSettings = Field(default_factory=AnalysisSettings)
+    alerts: AlertSettings = Field(default_factory=AlertSettings)
+
+    @model_validator(mode="after")
+    def _consistent(self):
+        ids = [s.source_id for s in self.sources]
+        duplicates = sorted({s for s in ids if ids.count(s) > 1})
+        if duplicates:
+            raise ValueError(f"sources listed twice: {duplicates}")
+        if self.mechanism.startswith("two_rule") and self.rule_class.kind != "constant":
+            raise ValueError(f"mechanism {self.mechanism!r} needs rule_class.kind 'constant'")
+        return self
+
+    @property
+    def registry(self) -> dict[str, SourceEntry]:
+        return {s.source_id: s for s in self.sources}
+
+
+def load_config(path: str | Path) -> Config:
+    """Read and validate a YAML configuration file.
+
+    :raises ConfigError: missing file, bad YAML, or a value that breaks the schema
+        (the message names each offending key).
+    """
+    path = Path(path)
+    try:
+        raw = yaml.safe_load(path.read_text())
+    except OSError as error:
+        raise ConfigError(f"{path}: cannot read configuration: {error.strerror}") from error
+    except yaml.YAMLError as error:
+        raise ConfigError(f"{path}: not valid YAML: {error}") from error
+    try:
+        return Config.model_validate(raw or {})
+    except ValidationError as error:
+        problems = "; ".join(
+            f"{'.'.join(str(p) for p in e['loc']) or '(top level)'}: {e['msg']}" for e in error.errors()
+        )
+        raise ConfigError(f"{path}: invalid configuration: {problems}") from error
