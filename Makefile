@@ -10,8 +10,8 @@ setup: $(STAMP)
 $(STAMP): pyproject.toml requirements.lock
 	python3 -m pip install --quiet --disable-pip-version-check uv
 	test -x $(PYTHON) || python3 -m uv venv --quiet -p python3.11 $(VENV)
-	VIRTUAL_ENV=$(VENV) python3 -m uv pip install --quiet -r requirements.lock
-	VIRTUAL_ENV=$(VENV) python3 -m uv pip install --quiet --no-deps -e .
+	python3 -m uv pip install --quiet --python $(PYTHON) -r requirements.lock
+	python3 -m uv pip install --quiet --python $(PYTHON) --no-deps -e .
 	touch $(STAMP)
 
 demo: setup
