@@ -17,6 +17,7 @@ from truthsieve.pipeline.config import RoutingPolicy
 AGGREGATE, REVIEW = "aggregate", "review"
 
 REASON_CODES = {
+    "items_invalid": "the items table broke the input rules and was quarantined",
     "source_quarantined": "a source's files broke the input rules and were quarantined",
     "too_few_sources": "fewer valid sources than routing.min_valid_sources",
     "ratio_above_bound": "the mechanism's expected risk exceeds routing.max_ratio times the consensus risk",
@@ -48,9 +49,12 @@ def route_batch(
     valid_sources: int,
     policy: RoutingPolicy,
     demo_key: bool,
+    items_valid: bool = True,
 ) -> tuple[str, list[Reason]]:
     """The route and every reason behind it; blocking reasons force review."""
     reasons = []
+    if not items_valid:
+        reasons.append(Reason("items_invalid", "the items table broke the input rules; no rule can be fitted tonight", True))
     too_many = len(quarantined_sources) > policy.max_invalid_sources
     for source in quarantined_sources:
         reasons.append(Reason("source_quarantined", f"{source}: label files broke the input rules and were left out of the batch", too_many, source))

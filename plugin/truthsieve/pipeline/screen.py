@@ -230,10 +230,8 @@ def decide(
     if intake.items.valid and intake.valid_sources:
         analysis = analyse_batch(intake.labels, intake.items.table, config, history, incentives)
     route, reasons = route_batch(
-        analysis, [s.source_id for s in intake.quarantined], len(intake.valid_sources), config.routing, demo_key
+        analysis, [s.source_id for s in intake.quarantined], len(intake.valid_sources), config.routing, demo_key, intake.items.valid
     )
-    if analysis is None:
-        route = REVIEW
     decision = build_decision(intake, config, analysis, route, reasons, key, demo_key)
 
     files: dict[str, bytes] = {"decision.json": dumps_decision(decision)}
