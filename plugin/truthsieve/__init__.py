@@ -1,8 +1,27 @@
-"""truthsieve: screen nightly multi-source label batches before they shape a shared rule."""
+"""truthsieve: screen nightly multi-source label batches before they shape a shared rule.
 
-from truthsieve.core import *  # noqa: F403
-from truthsieve.core import __all__ as _core_names
-from truthsieve.exceptions import TruthsieveError
+The core's public names are re-exported lazily, so ``import truthsieve`` (as a DAG file
+does, through the operators) costs nothing until a name is used.
+"""
+
+from __future__ import annotations
+
+import importlib
 
 __version__ = "0.1.0"
-__all__ = [*_core_names, "TruthsieveError", "__version__"]
+
+_CORE_NAMES = (
+    "ConsensusFit", "ConstantRules", "Draw", "LabelMatrix", "ListedRules", "LotteryEntry", "MECHANISMS",
+    "MechanismResult", "RULE_CLASS_KINDS", "RuleClass", "SourceIncentive", "ThresholdRules",
+    "build_label_matrix", "build_rule_class", "draw", "fit_consensus", "incentives", "inverse_cdf",
+    "key_fingerprint", "own_best_rules", "report_costs", "run_mechanism", "source_incentive", "uniform_from_date",
+)
+__all__ = [*_CORE_NAMES, "TruthsieveError", "__version__"]
+
+
+def __getattr__(name: str):
+    if name in _CORE_NAMES:
+        return getattr(importlib.import_module("truthsieve.core"), name)
+    if name == "TruthsieveError":
+        return importlib.import_module("truthsieve.exceptions").TruthsieveError
+    raise AttributeError(f"module 'truthsieve' has no attribute {name!r}")

@@ -67,6 +67,23 @@ class FileCheck:
     def valid(self) -> bool:
         return self.table is not None and not self.errors
 
+    def summary(self) -> dict:
+        """Everything but the table, as JSON-ready data (the table travels as Parquet)."""
+        return {
+            "source_id": self.source_id,
+            "inputs": [asdict(f) for f in self.inputs],
+            "errors": [e.as_dict() for e in self.errors],
+        }
+
+    @classmethod
+    def from_summary(cls, summary: dict, table: pd.DataFrame | None) -> "FileCheck":
+        return cls(
+            source_id=summary["source_id"],
+            table=table,
+            inputs=[InputFile(**f) for f in summary["inputs"]],
+            errors=[ErrorRecord(**e) for e in summary["errors"]],
+        )
+
 
 def batch_folder(inbox: str | Path, batch_date: str) -> Path:
     return Path(inbox) / f"batch_date={batch_date}"

@@ -1,0 +1,87 @@
+"""
+### truthsieve nightly screen
+
+Screens the night's label batch: validates each source's files (mapped over the source
+folders present), fits the consensus rule, measures each source's incentive to misreport
+(mapped over the valid sources), routes the batch to aggregation or review, publishes
+the outputs and alerts the owners of flagged sources.
+
+Params: `inbox`, `out`, `config` (paths or `file://` URIs on storage every worker sees).
+The batch date is the run's logical date (`ds`). Backfill past nights with
+`airflow backfill create --dag-id truthsieve_nightly --from-date A --to-date B`.
+Downstream DAGs can be scheduled on the asset `truthsieve_published_aggregate`, which
+gets an event only on nights that were aggregated.
+"""
+
+from __future__ import annotations
+
+import os
+from datetime import datetime
+
+from airflow.sdk import DAG, Asset, Param, task
+
+from truthsieve.airflow.operators import (
+    DecideAndPublishOperator,
+    FitConsensusOperator,
+    SendAlertsOperator,
+    SourceIncentiveOperator,
+    ValidateSourceOperator,
+)
+
+PUBLISHED_AGGREGATE = Asset(name="truthsieve_published_aggregate")
+
+with DAG(
+    dag_id="truthsieve_nightly",
+    schedule="@daily",
+    start_date=datetime(2026, 1, 1),
+    catchup=False,
+    max_active_runs=4,
+    doc_md=__doc__,
+    tags=["truthsieve", "labels"],
+    default_args={"retries": 2},
+    params={
+        "inbox": Param(os.environ.get("TRUTHSIEVE_INBOX", "/data/truthsieve/inbox"), type="string"),
+        "out": Param(os.environ.get("TRUTHSIEVE_OUT", "/data/truthsieve/out"), type="string"),
+        "config": Param(os.environ.get("TRUTHSIEVE_CONFIG", "/data/truthsieve/config.yaml"), type="string"),
+    },
+):
+    paths = {"inbox": "{{ params.inbox }}", "batch_date": "{{ ds }}", "config_path": "{{ params.config }}", "out": "{{ params.out }}"}
+
+    @task
+    def list_source_folders(inbox: str, out: str, ds=None) -> list[str]:
+        """The source folders of the night; clears this night's work folder."""
+        import shutil
+
+        from truthsieve.airflow.operators import local_path, work_folder
+        from truthsieve.pipeline.ingest import batch_folder, source_folders
+
+        if not batch_folder(local_path(inbox), ds).is_dir():
+            from airflow.sdk.exceptions import AirflowFailException
+
+            raise AirflowFailException(f"no batch folder for {ds} under {inbox}")
+        shutil.rmtree(work_folder(out, ds), ignore_errors=True)
+        return [p.name for p in source_folders(local_path(inbox), ds)]
+
+    @task
+    def valid_source_ids(summaries: list[dict]) -> list[str]:
+        return sorted(s["source_id"] for s in summaries if s["valid"])
+
+    @task(outlets=[PUBLISHED_AGGREGATE])
+    def announce_aggregate(result: dict) -> str:
+        """Emit the asset event only when the night was aggregated."""
+        from airflow.sdk.exceptions import AirflowSkipException
+
+        if result["route"] != "aggregate":
+            raise AirflowSkipException("routed to review: the previous rule stays published")
+        return result["output"]
+
+    folders = list_source_folders("{{ params.inbox }}", "{{ params.out }}")
+    validated = ValidateSourceOperator.partial(task_id="validate_source", **paths).expand(source_folder=folders)
+    sources = valid_source_ids(validated.output)
+    consensus = FitConsensusOperator(task_id="fit_consensus", **paths)
+    incentives = SourceIncentiveOperator.partial(task_id="source_incentive", **paths).expand(source_id=sources)
+    decided = DecideAndPublishOperator(task_id="decide_and_publish", trigger_rule="none_failed", **paths)
+    alerts = SendAlertsOperator(task_id="send_alerts", **paths)
+
+    sources >> consensus >> incentives >> decided >> alerts
+    announce_aggregate(decided.output)
