@@ -1,0 +1,156 @@
+"""Benchmarks of one nightly screen: prints ratios and writes them as JSON.
+
+    python bench/run.py            # 100k and 1M labels, the listed case
+    python bench/run.py --large    # adds 10M labels (several minutes, a few GiB)
+
+Each size runs in a child process so peak resident memory is its own. Figures are
+medians over --repeat runs. Synthetic data only (fixed seeds).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import resource
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+ROOT = Path(__file__).resolve().parents[1]
+N_SOURCES, N_FEATURES = 10, 8
+
+
+def make_inbox(folder: Path, n_items: int, listed_rules: int = 0, seed: int = 0) -> dict:
+    rng = np.random.default_rng(seed)
+    batch = folder / "batch_date=2026-01-01"
+    batch.mkdir(parents=True, exist_ok=True)
+    features = {f"f{k}": np.round(rng.normal(0, 1, n_items), 3) for k in range(N_FEATURES)}
+    ids = [f"i{k:08d}" for k in range(n_items)]
+    columns = {"item_id": ids, **features}
+    for r in range(listed_rules):
+        columns[f"rule__r{r:03d}"] = features["f0"] > rng.normal(0, 1)
+    pq.write_table(pa.table(columns), batch / "items.parquet")
+    truth = features["f0"] + 0.3 * features["f1"] > 0
+    for s in range(N_SOURCES):
+        labels = truth ^ (rng.random(n_items) < 0.05 + 0.02 * s)
+        if s == 0:
+            labels = features["f0"] > 0.4  # one rule-shaped source
+        (batch / f"source_id=s{s:02d}").mkdir(exist_ok=True)
+        pq.write_table(pa.table({"item_id": ids, "label": labels}), batch / f"source_id=s{s:02d}" / "labels.parquet")
+    kind = "listed" if listed_rules else "threshold"
+    return {
+        "rule_class": {"kind": kind, "features": [] if listed_rules else list(features)},
+        "mechanism": "tuned_dictator",
+        "sources": [{"source_id": f"s{s:02d}", "weight": 1.0 + s % 3} for s in range(N_SOURCES)],
+    }
+
+
+def measure(n_items: int, listed_rules: int, repeat: int) -> dict:
+    """Runs inside the child process."""
+    import pandas as pd
+
+    from truthsieve.core.dawid_skene import dawid_skene
+    from truthsieve.core.incentives import source_incentive
+    from truthsieve.core.mechanisms import run_mechanism
+    from truthsieve.pipeline.analysis import prepare
+    from truthsieve.pipeline.config import Config
+    from truthsieve.pipeline.outputs import parquet_bytes
+    from truthsieve.pipeline.screen import decide, ingest_batch
+
+    with tempfile.TemporaryDirectory() as tmp:
+        inbox = Path(tmp)
+        config = Config.model_validate(make_inbox(inbox, n_items, listed_rules))
+        times: dict[str, list[float]] = {}
+
+        def timed(name, call):
+            start = time.perf_counter()
+            value = call()
+            times.setdefault(name, []).append(time.perf_counter() - start)
+            return value
+
+        for _ in range(repeat):
+            batch = inbox / "batch_date=2026-01-01"
+
+            def bare_load():
+                items = pq.read_table(batch / "items.parquet").to_pandas()
+                frames = [pq.read_table(p).to_pandas() for p in sorted(batch.glob("source_id=*/*.parquet"))]
+                return items, frames
+
+            timed("bare_load", bare_load)
+            intake = timed("load_validate", lambda: ingest_batch(inbox, "2026-01-01", config))
+            matrix, rule_class, consensus = timed("consensus_fit", lambda: prepare(intake.labels, intake.items.table, config))
+            timed("mechanism", lambda: run_mechanism(config.mechanism, matrix, rule_class, consensus))
+            results = timed("incentives", lambda: [source_incentive(matrix, rule_class, consensus, i, config.analysis.incentive_budget) for i in range(matrix.n_sources)])
+            timed("reliability", lambda: dawid_skene(matrix.labels, matrix.labelled))
+            decision, files, _ = decide(intake, config, {}, results)
+            timed("write_outputs", lambda: [len(v) for v in files.values()])
+            timed("full_screen", lambda: decide(ingest_batch(inbox, "2026-01-01", config), config, {}))
+            if rule_class.kind == "threshold":
+                from sklearn.tree import DecisionTreeClassifier
+
+                cost0, cost1 = matrix.global_costs()
+                features = np.column_stack([f.values for f in rule_class.features])
+                y = (cost0 > cost1).astype(int)
+                weight = np.abs(cost0 - cost1)
+                timed("threshold_erm", lambda: rule_class.fit(cost0, cost1))
+                timed("sklearn_stump", lambda: DecisionTreeClassifier(max_depth=1).fit(features, y, sample_weight=weight))
+    medians = {k: statistics.median(v) for k, v in times.items()}
+    exact = [r.gain_exact for r in results]
+    widths = [r.gain_upper - r.gain_lower for r in results]
+    return {
+        "labels": n_items * N_SOURCES,
+        "seconds": medians,
+        "exact_gain_fraction": sum(exact) / len(exact),
+        "median_bracket_width": statistics.median(widths),
+        "peak_rss_mib": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024,
+    }
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser.add_argument("--large", action="store_true", help="also run 10M labels")
+    parser.add_argument("--repeat", type=int, default=3)
+    parser.add_argument("--child", nargs=2, type=int, help=argparse.SUPPRESS)
+    parser.add_argument("--json", type=Path, default=ROOT / "bench" / "results" / "latest.json")
+    args = parser.parse_args()
+    if args.child:
+        print(json.dumps(measure(args.child[0], args.child[1], args.repeat)))
+        return
+    cases = {"100k": (10_000, 0), "1M": (100_000, 0), "listed100": (10_000, 100)}
+    if args.large:
+        cases["10M"] = (1_000_000, 0)
+    figures = {}
+    for name, (n_items, rules) in cases.items():
+        repeat = 1 if name == "10M" else args.repeat
+        out = subprocess.run([sys.executable, __file__, "--child", str(n_items), str(rules), "--repeat", str(repeat)], capture_output=True, text=True, check=True)
+        figures[name] = json.loads(out.stdout.strip().splitlines()[-1])
+        s = figures[name]["seconds"]
+        print(f"{name:>10}: full screen {s['full_screen']:.2f}s, bare load {s['bare_load']:.2f}s, "
+              f"incentives {s['incentives']:.2f}s, peak RSS {figures[name]['peak_rss_mib']:.0f} MiB")
+    one = figures["1M"]["seconds"]
+    ratios = {
+        "full_over_bare_load_1M": one["full_screen"] / one["bare_load"],
+        "threshold_erm_over_sklearn_stump_1M": one["threshold_erm"] / one["sklearn_stump"],
+        "exact_gain_fraction_1M": figures["1M"]["exact_gain_fraction"],
+        "median_bracket_width_1M": figures["1M"]["median_bracket_width"],
+    }
+    if "10M" in figures:
+        ratios["scaling_10M_over_1M"] = figures["10M"]["seconds"]["full_screen"] / one["full_screen"]
+        ratios["peak_rss_gib_10M"] = figures["10M"]["peak_rss_mib"] / 1024
+    print("\nratios (targets: full/load <= 10, 10M/1M <= 12, ERM/stump <= 1.0, exact >= 0.95, 10M RSS <= 2 GiB)")
+    for key, value in ratios.items():
+        print(f"  {key:<40} {value:.3f}")
+    args.json.parent.mkdir(parents=True, exist_ok=True)
+    args.json.write_text(json.dumps({"figures": figures, "ratios": ratios}, indent=2, sort_keys=True))
+    print(f"\nfigures written to {args.json}")
+
+
+if __name__ == "__main__":
+    main()
