@@ -74,7 +74,7 @@ def _table(headers: Sequence[str], rows: Sequence[Sequence[str]], text_columns: 
 
 def _axis_box(width: int, height: int, inner: str, label: str) -> str:
     return (
-        f"<svg xmlns='http://www.w3.org/2000/svg' viewBox='0 0 {width} {height}' width='100%' role='img' "
+        f"<svg xmlns='http://www.w3.org/2000/svg' viewBox='0 0 {width} {height}' width='100%' style='max-width:{width + 100}px' role='img' "
         f"aria-label='{_e(label)}'><rect x='0' y='0' width='{width}' height='{height}' fill='#fff'/>{inner}</svg>"
     )
 
