@@ -54,14 +54,12 @@ def make_inbox(folder: Path, n_items: int, listed_rules: int = 0, seed: int = 0)
 
 def measure(n_items: int, listed_rules: int, repeat: int) -> dict:
     """Runs inside the child process."""
-    import pandas as pd
 
     from truthsieve.core.dawid_skene import dawid_skene
     from truthsieve.core.incentives import source_incentive
     from truthsieve.core.mechanisms import run_mechanism
     from truthsieve.pipeline.analysis import prepare
     from truthsieve.pipeline.config import Config
-    from truthsieve.pipeline.outputs import parquet_bytes
     from truthsieve.pipeline.screen import decide, ingest_batch
 
     with tempfile.TemporaryDirectory() as tmp:

@@ -11,9 +11,9 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from core_support import FEATURES, core_objects
-from oracle import Instance, all_reports, enumerate_rules, erm, global_risk, private_risk
+from oracle import Instance, all_reports, erm, global_risk, private_risk
 from strategies import instances
-from truthsieve.core import MECHANISMS, build_label_matrix, build_rule_class, fit_consensus, run_mechanism
+from truthsieve.core import MECHANISMS, build_label_matrix, build_rule_class, run_mechanism
 from truthsieve.exceptions import MechanismError, NoItemsError, NoSourcesError, UnknownReferenceError, WeightError
 
 STRATEGY_PROOF = [m for m in MECHANISMS if m != "erm"]

@@ -6,7 +6,6 @@ import json
 import shutil
 import subprocess
 from html.parser import HTMLParser
-from pathlib import Path
 
 import pytest
 

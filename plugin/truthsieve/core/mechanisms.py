@@ -74,13 +74,6 @@ def own_best_rules(matrix: LabelMatrix, rule_class: RuleClass) -> np.ndarray:
     return np.array([rule_class.fit(*matrix.source_costs(i)) for i in range(matrix.n_sources)])
 
 
-def global_risk(matrix: LabelMatrix, rule_class: RuleClass, rule: int) -> float:
-    """``R(rule)``."""
-    cost0, cost1 = matrix.global_costs()
-    prediction = rule_class.predict(rule)
-    return float(np.where(prediction, cost1, cost0).sum())
-
-
 def dictator_guarantee(probabilities: np.ndarray, weights: np.ndarray) -> float:
     """Worst-case ratio ``1 + 2 max_i p_i (1 - w_i) / w_i`` of a fixed dictator lottery."""
     if len(weights) == 1:
