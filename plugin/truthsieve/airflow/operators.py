@@ -75,7 +75,7 @@ class ValidateSourceOperator(_BatchOperator):
 
         config = self.load_config()
         inbox = local_path(self.inbox)
-        items = ingest.validate_items(inbox, self.batch_date, config.rule_class.features, config.rule_class.kind == "listed")
+        items = _items_check(inbox, self.batch_date, self.out, config)
         item_ids = pd.Index(items.table["item_id"]) if items.valid else None
         folder = ingest.batch_folder(inbox, self.batch_date) / self.source_folder
         check = ingest.validate_source(inbox, folder, config.registry, item_ids)
@@ -89,6 +89,27 @@ class ValidateSourceOperator(_BatchOperator):
         return {"source_id": check.source_id, "valid": check.valid, "errors": len(check.errors)}
 
 
+def _items_check(inbox: Path, batch_date: str, out: str, config):
+    """The night's items table, validated once per run and kept in the work folder."""
+    import pandas as pd
+    import pyarrow as pa
+
+    from truthsieve.pipeline import ingest
+    from truthsieve.pipeline.outputs import parquet_bytes, write_atomic
+
+    work = work_folder(out, batch_date)
+    summary_path, table_path = work / "items.json", work / "items.parquet"
+    if summary_path.is_file():
+        table = pd.read_parquet(table_path) if table_path.is_file() else None
+        return ingest.FileCheck.from_summary(json.loads(summary_path.read_text()), table)
+    check = ingest.validate_items(inbox, batch_date, config.rule_class.features, config.rule_class.kind == "listed")
+    work.mkdir(parents=True, exist_ok=True)
+    if check.valid:
+        write_atomic(table_path, parquet_bytes(pa.Table.from_pandas(check.table, preserve_index=False)))
+    write_atomic(summary_path, json.dumps(check.summary(), sort_keys=True).encode())
+    return check
+
+
 class _WorkReader:
     """Rebuild a night's validated intake from the work folder."""
 
@@ -99,8 +120,7 @@ class _WorkReader:
         from truthsieve.pipeline import ingest
         from truthsieve.pipeline.screen import Intake
 
-        items = ingest.validate_items(inbox, batch_date, config.rule_class.features, config.rule_class.kind == "listed")
-        intake = Intake(batch_date, items)
+        intake = Intake(batch_date, _items_check(inbox, batch_date, out, config))
         work = work_folder(out, batch_date) / "sources"
         for folder in ingest.source_folders(inbox, batch_date):
             summary_path = work / f"{folder.name}.json"
