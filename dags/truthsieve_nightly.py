@@ -7,8 +7,10 @@ folders present), fits the consensus rule, measures each source's incentive to m
 the outputs and alerts the owners of flagged sources.
 
 Params: `inbox`, `out`, `config` (paths or `file://` URIs on storage every worker sees).
-The batch date is the run's logical date (`ds`). Backfill past nights with
-`airflow backfill create --dag-id truthsieve_nightly --from-date A --to-date B`.
+The batch date is the run's logical date (`ds`). Drift compares each night with the
+nights before it, so nights must be screened in date order: the DAG allows one active
+run, and backfills must too:
+`airflow backfill create --dag-id truthsieve_nightly --from-date A --to-date B --max-active-runs 1`.
 Downstream DAGs can be scheduled on the asset `truthsieve_published_aggregate`, which
 gets an event only on nights that were aggregated.
 """
@@ -35,7 +37,7 @@ with DAG(
     schedule="@daily",
     start_date=datetime(2026, 1, 1),
     catchup=False,
-    max_active_runs=4,
+    max_active_runs=1,  # drift reads earlier nights: screen nights in date order
     doc_md=__doc__,
     tags=["truthsieve", "labels"],
     default_args={"retries": 2},
