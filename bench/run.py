@@ -60,6 +60,7 @@ def measure(n_items: int, listed_rules: int, repeat: int) -> dict:
     from truthsieve.core.mechanisms import run_mechanism
     from truthsieve.pipeline.analysis import prepare
     from truthsieve.pipeline.config import Config
+    from truthsieve.pipeline.outputs import publish
     from truthsieve.pipeline.screen import decide, ingest_batch
 
     with tempfile.TemporaryDirectory() as tmp:
@@ -77,9 +78,9 @@ def measure(n_items: int, listed_rules: int, repeat: int) -> dict:
             batch = inbox / "batch_date=2026-01-01"
 
             def bare_load():
-                items = pq.read_table(batch / "items.parquet").to_pandas()
-                frames = [pq.read_table(p).to_pandas() for p in sorted(batch.glob("source_id=*/*.parquet"))]
-                return items, frames
+                """The floor: every file read and every column turned into a NumPy array."""
+                tables = [pq.read_table(batch / "items.parquet"), *(pq.read_table(p) for p in sorted(batch.glob("source_id=*/*.parquet")))]
+                return [[column.to_numpy(zero_copy_only=False) for column in table.columns] for table in tables]
 
             timed("bare_load", bare_load)
             intake = timed("load_validate", lambda: ingest_batch(inbox, "2026-01-01", config))
@@ -88,8 +89,8 @@ def measure(n_items: int, listed_rules: int, repeat: int) -> dict:
             results = timed("incentives", lambda: [source_incentive(matrix, rule_class, consensus, i, config.analysis.incentive_budget) for i in range(matrix.n_sources)])
             timed("reliability", lambda: dawid_skene(matrix.labels, matrix.labelled))
             decision, files, _ = decide(intake, config, {}, results)
-            timed("write_outputs", lambda: [len(v) for v in files.values()])
-            timed("full_screen", lambda: decide(ingest_batch(inbox, "2026-01-01", config), config, {}))
+            timed("write_outputs", lambda: publish(inbox / "out", "2026-01-01", files))
+            timed("full_screen", lambda: publish(inbox / "out", "2026-01-01", decide(ingest_batch(inbox, "2026-01-01", config), config, {})[1]))
             if rule_class.kind == "threshold":
                 from sklearn.tree import DecisionTreeClassifier
 

@@ -76,7 +76,7 @@ class ValidateSourceOperator(_BatchOperator):
         config = self.load_config()
         inbox = local_path(self.inbox)
         items = _items_check(inbox, self.batch_date, self.out, config)
-        item_ids = pd.Index(items.table["item_id"]) if items.valid else None
+        item_ids = pd.Index(items.table["item_id"].to_numpy(dtype=object), dtype=object) if items.valid else None
         folder = ingest.batch_folder(inbox, self.batch_date) / self.source_folder
         check = ingest.validate_source(inbox, folder, config.registry, item_ids)
         work = work_folder(self.out, self.batch_date) / "sources"

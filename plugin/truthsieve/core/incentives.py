@@ -104,12 +104,26 @@ def cheapest_lie(
     target_labels = rule_class.predict(target)
     disagreeing = np.flatnonzero(matrix.labelled[index] & (truth != target_labels))
     ordered = _lie_order(rule_class, target, disagreeing)
-    low, high = 0, len(ordered)  # reachable with the first `high` flips, not with `low`
+
+    def reaches_with(count: int) -> bool:
+        report = truth.copy()
+        report[ordered[:count]] = target_labels[ordered[:count]]
+        return _reaches(rule_class, others, weight, matrix, index, report, target)
+
+    # Reachable with the first `high` flips, not with the first `low`. Prefixes lighter
+    # than the margin bound cannot reach, so the search starts there and gallops up:
+    # with unit weights the bound is nearly tight and a few checks suffice.
+    prefix_weight = np.cumsum(matrix.item_weights[ordered])
+    low = int(np.searchsorted(prefix_weight, lower - TIE_TOLERANCE, side="left"))
+    high, step = len(ordered), 1
+    while low + step < high:
+        if reaches_with(low + step):
+            high = low + step
+            break
+        low, step = low + step, step * 2
     while high - low > 1:
         middle = (low + high) // 2
-        report = truth.copy()
-        report[ordered[:middle]] = target_labels[ordered[:middle]]
-        if _reaches(rule_class, others, weight, matrix, index, report, target):
+        if reaches_with(middle):
             high = middle
         else:
             low = middle

@@ -114,9 +114,9 @@ def build_label_matrix(
     """
     if len(items) == 0:
         raise NoItemsError("the items table has no rows")
-    item_index = pd.Index(items["item_id"].astype(str))
-    order = np.argsort(item_index.to_numpy(dtype=object).astype(str), kind="stable")
-    item_ids = item_index.to_numpy(dtype=object)[order].astype(str)
+    raw_ids = as_ids(items["item_id"])
+    order = np.argsort(raw_ids, kind="stable")
+    item_ids = raw_ids[order]
     if "item_weight" in items.columns:
         item_weights = items["item_weight"].to_numpy(dtype=np.float64)[order]
     else:
@@ -124,7 +124,8 @@ def build_label_matrix(
     if not np.isfinite(item_weights).all() or (item_weights < 0).any():
         raise WeightError("item weights must be finite and non-negative")
 
-    present = sorted(set(labels["source_id"].astype(str)))
+    source_codes, source_names = pd.factorize(np.asarray(labels["source_id"], dtype=object))
+    present = sorted(str(s) for s in source_names)
     if not present:
         raise NoSourcesError("no source labelled any item")
     missing = [s for s in present if s not in source_weights]
@@ -135,12 +136,12 @@ def build_label_matrix(
         bad = [s for s, w in zip(present, raw_weights) if not (np.isfinite(w) and w > 0)]
         raise WeightError(f"source weights must be positive and finite: {', '.join(bad)}")
 
-    sorted_index = pd.Index(item_ids)
-    columns = sorted_index.get_indexer(labels["item_id"].astype(str))
+    label_items = np.asarray(labels["item_id"], dtype=object)
+    columns = pd.Index(item_ids.astype(object), dtype=object).get_indexer(label_items)
     if (columns < 0).any():
-        unknown = labels["item_id"].astype(str)[columns < 0].iloc[0]
+        unknown = label_items[columns < 0][0]
         raise UnknownReferenceError(f"label on unknown item {unknown!r}")
-    rows = pd.Index(present).get_indexer(labels["source_id"].astype(str))
+    rows = np.searchsorted(np.array(present), np.asarray(source_names, dtype=str))[source_codes]
 
     shape = (len(present), len(item_ids))
     dense_labels = np.zeros(shape, dtype=np.int8)
@@ -160,6 +161,11 @@ def build_label_matrix(
     if empty:
         raise NoItemsError(f"sources labelled no item of positive weight: {', '.join(empty)}")
     return matrix
+
+
+def as_ids(values) -> np.ndarray:
+    """Ids as a NumPy unicode array: sorts and compares in C, whatever pandas' string dtype."""
+    return np.asarray(values, dtype=object).astype(str)
 
 
 def risk_is_zero(value: float) -> bool:

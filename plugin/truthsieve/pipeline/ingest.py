@@ -231,7 +231,7 @@ def validate_source(
         return check
 
     frames = []
-    seen: set[str] = set()
+    seen = pd.Index([], dtype=object)
     for index, (relative, data) in enumerate(contents):
         table, error = _parse(relative, data)
         if table is not None:
@@ -243,6 +243,7 @@ def validate_source(
         check.errors += errors
         if frame is not None:
             frames.append(frame)
+            seen = seen.append(pd.Index(frame["item_id"].to_numpy(), dtype=object))
     if not check.errors:
         labels = pd.concat(frames, ignore_index=True)
         labels.insert(1, "source_id", source_id)
@@ -252,7 +253,7 @@ def validate_source(
 
 
 def _validate_labels(
-    relative: str, table: pa.Table, item_ids: pd.Index | None, seen: set[str]
+    relative: str, table: pa.Table, item_ids: pd.Index | None, seen: pd.Index
 ) -> tuple[pd.DataFrame | None, list[ErrorRecord]]:
     errors: list[ErrorRecord] = []
     schema = table.schema
@@ -271,8 +272,9 @@ def _validate_labels(
     if errors:
         return None, errors
 
-    ids = table.column("item_id").to_pandas()
-    raw = table.column("label").to_pandas()
+    # Plain object arrays: pandas' Arrow-backed strings hash element by element in Python.
+    ids = pd.Series(table.column("item_id").to_numpy(zero_copy_only=False), dtype=object)
+    raw = pd.Series(table.column("label").to_numpy(zero_copy_only=False))
     errors += _row_errors(relative, np.flatnonzero(ids.isna().to_numpy()), "item_id", "null_item_id", "item_id is null")
     errors += _row_errors(relative, np.flatnonzero(raw.isna().to_numpy()), "label", "null_label", "label is null")
     numeric = raw.astype("float64")
@@ -280,12 +282,13 @@ def _validate_labels(
         relative, np.flatnonzero(raw.notna().to_numpy() & ~numeric.isin([0.0, 1.0]).to_numpy()),
         "label", "label_out_of_range", "label must be 0 or 1",
     )
-    repeated = ids.duplicated(keep="first").to_numpy() | ids.isin(seen).to_numpy()
+    repeated = ids.duplicated(keep="first").to_numpy()
+    if len(seen):
+        repeated |= ids.isin(seen).to_numpy()
     errors += _row_errors(relative, np.flatnonzero(repeated & ids.notna().to_numpy()), "item_id", "duplicate_label", "this source already labelled this item")
     if item_ids is not None:
-        unknown = ids.notna().to_numpy() & (item_ids.get_indexer(ids.fillna("")) < 0)
+        unknown = ids.notna().to_numpy() & (item_ids.get_indexer(ids.fillna("").to_numpy()) < 0)
         errors += _row_errors(relative, np.flatnonzero(unknown), "item_id", "unknown_item", "item_id is not in the items table")
     if errors:
         return None, errors
-    seen.update(ids)
-    return pd.DataFrame({"item_id": ids.astype(str).to_numpy(), "label": numeric.to_numpy().astype(np.int8)}), []
+    return pd.DataFrame({"item_id": ids.to_numpy(), "label": numeric.to_numpy().astype(np.int8)}), []

@@ -78,7 +78,7 @@ def ingest_batch(inbox: str | Path, batch_date: str, config: Config) -> Intake:
     if not folder.is_dir():
         raise InputError(f"{folder}: no such batch folder")
     items = ingest.validate_items(inbox, batch_date, config.rule_class.features, config.rule_class.kind == "listed")
-    item_ids = pd.Index(items.table["item_id"]) if items.valid else None
+    item_ids = pd.Index(items.table["item_id"].to_numpy(dtype=object), dtype=object) if items.valid else None
     intake = Intake(batch_date, items)
     for source_folder in ingest.source_folders(inbox, batch_date):
         intake.sources.append(ingest.validate_source(inbox, source_folder, config.registry, item_ids))
