@@ -238,13 +238,22 @@ def test_invariant_to_row_order_and_source_renaming(mechanism, data, seed):
     assert base.expected_risk == pytest.approx(other.expected_risk)
 
 
+@pytest.mark.parametrize("mechanism", MECHANISMS)
 @given(data=st.data(), scale=st.integers(2, 50))
-def test_weights_are_scale_invariant(data, scale):
-    instance = data.draw(instances(kind="threshold"))
+def test_scaling_every_weight_changes_nothing(mechanism, data, scale):
+    kind = "constant" if mechanism.startswith("two_rule") else "threshold"
+    instance = data.draw(instances(kind=kind))
     labels, items = instance.frames()
-    a = build_label_matrix(labels, items, instance.source_weights)
-    b = build_label_matrix(labels, items, {s: w * scale for s, w in instance.source_weights.items()})
-    np.testing.assert_allclose(a.source_weights, b.source_weights)
+    scaled_items = items.assign(item_weight=items["item_weight"] * scale)
+    results = []
+    for source_scale, frame in ((1, items), (scale, scaled_items)):
+        matrix = build_label_matrix(labels, frame, {s: w * source_scale for s, w in instance.source_weights.items()})
+        rule_class = build_rule_class(kind, frame, matrix.item_ids, FEATURES)
+        result = run_mechanism(mechanism, matrix, rule_class)
+        results.append(([rule_class.describe(e.rule) for e in result.lottery], [e.probability for e in result.lottery], result.expected_risk))
+    assert results[0][0] == results[1][0]
+    assert results[0][1] == pytest.approx(results[1][1])
+    assert results[0][2] == pytest.approx(results[1][2])
 
 
 def test_two_rule_mechanism_on_another_class_raises():
