@@ -52,17 +52,16 @@ with DAG(
     @task
     def list_source_folders(inbox: str, out: str, ds=None) -> list[str]:
         """The source folders of the night; clears this night's work folder."""
-        import shutil
+        from airflow.sdk.exceptions import AirflowFailException
 
-        from truthsieve.airflow.operators import local_path, work_folder
-        from truthsieve.pipeline.ingest import batch_folder, source_folders
+        from truthsieve.airflow import storage
 
-        if not batch_folder(local_path(inbox), ds).is_dir():
-            from airflow.sdk.exceptions import AirflowFailException
-
+        if not storage.batch_exists(inbox, ds):
             raise AirflowFailException(f"no batch folder for {ds} under {inbox}")
-        shutil.rmtree(work_folder(out, ds), ignore_errors=True)
-        return [p.name for p in source_folders(local_path(inbox), ds)]
+        work = storage.work_location(out, ds)
+        if work.exists():
+            work.rmdir(recursive=True)
+        return storage.source_folders(inbox, ds)
 
     @task
     def valid_source_ids(summaries: list[dict]) -> list[str]:

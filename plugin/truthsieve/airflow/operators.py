@@ -1,29 +1,22 @@
 """Airflow operators: thin shells over :mod:`truthsieve.pipeline`.
 
-Each operator resolves its (templated) paths, calls one pipeline function and turns
-the outcome into the task's fate: bad input fails without retry
+Each operator resolves its (templated) locations, calls one pipeline function and
+turns the outcome into the task's fate: bad input fails without retry
 (``AirflowFailException``), anything else (a transient I/O fault) fails with retry.
-Data moves through files under ``<out>/.work/batch_date=<date>/``; XCom carries small
-summaries only. Nothing heavy is imported until ``execute`` runs.
+Data moves through files under ``<out>/.work/batch_date=<date>/`` on storage every
+worker sees (see :mod:`truthsieve.airflow.storage`); XCom carries small summaries only.
+Nothing heavy is imported until ``execute`` runs.
 """
 
 from __future__ import annotations
 
 import json
 from collections.abc import Sequence
-from pathlib import Path
 
 from airflow.sdk import BaseOperator
 from airflow.sdk.exceptions import AirflowFailException, AirflowSkipException
 
-
-def local_path(location: str) -> Path:
-    """A ``file://`` URI or plain path as a local path (object storage: see the README)."""
-    return Path(location.removeprefix("file://"))
-
-
-def work_folder(out: str, batch_date: str) -> Path:
-    return local_path(out) / ".work" / f"batch_date={batch_date}"
+from truthsieve.airflow import storage
 
 
 def _fail_on_bad_input(call):
@@ -36,6 +29,14 @@ def _fail_on_bad_input(call):
 
 
 class _BatchOperator(BaseOperator):
+    """Shared arguments of every truthsieve operator.
+
+    :param inbox: inbox root: a path or URI (templated).
+    :param batch_date: batch date, ``YYYY-MM-DD`` (templated).
+    :param config_path: YAML configuration: a path or URI (templated).
+    :param out: output root: a path or URI (templated).
+    """
+
     template_fields: Sequence[str] = ("inbox", "batch_date", "config_path", "out")
 
     def __init__(self, *, inbox: str, batch_date: str, config_path: str, out: str, **kwargs) -> None:
@@ -48,16 +49,56 @@ class _BatchOperator(BaseOperator):
     def load_config(self):
         from truthsieve.pipeline.config import load_config
 
-        return _fail_on_bad_input(lambda: load_config(local_path(self.config_path)))
+        return _fail_on_bad_input(lambda: load_config(storage.location(self.config_path)))
+
+    @property
+    def work(self):
+        return storage.work_location(self.out, self.batch_date)
+
+
+def _items_check(inbox: str, batch_date: str, out: str, config):
+    """The night's items table, validated once per run and kept in the work folder."""
+    import pandas as pd
+    import pyarrow as pa
+
+    from truthsieve.pipeline import ingest
+    from truthsieve.pipeline.outputs import parquet_bytes
+
+    work = storage.work_location(out, batch_date)
+    summary_path, table_path = work / "items.json", work / "items.parquet"
+    if summary_path.is_file():
+        table = pd.read_parquet(pa.BufferReader(table_path.read_bytes())) if table_path.is_file() else None
+        return ingest.FileCheck.from_summary(json.loads(summary_path.read_text()), table)
+    with storage.local_inbox(inbox, batch_date, folders=("items.parquet",)) as root:
+        check = ingest.validate_items(root, batch_date, config.rule_class.features, config.rule_class.kind == "listed")
+    if check.valid:
+        storage.write_object(table_path, parquet_bytes(pa.Table.from_pandas(check.table, preserve_index=False)))
+    storage.write_object(summary_path, json.dumps(check.summary(), sort_keys=True).encode())
+    return check
+
+
+def _intake(inbox: str, batch_date: str, out: str, config):
+    """Rebuild the night's validated intake from the work folder."""
+    import pandas as pd
+    import pyarrow as pa
+
+    from truthsieve.pipeline import ingest
+    from truthsieve.pipeline.screen import Intake
+
+    intake = Intake(batch_date, _items_check(inbox, batch_date, out, config))
+    sources = storage.work_location(out, batch_date) / "sources"
+    for folder in storage.source_folders(inbox, batch_date):
+        summary_path, table_path = sources / f"{folder}.json", sources / f"{folder}.parquet"
+        if not summary_path.is_file():
+            raise AirflowFailException(f"{folder} was not validated in this run")
+        table = pd.read_parquet(pa.BufferReader(table_path.read_bytes())) if table_path.is_file() else None
+        intake.sources.append(ingest.FileCheck.from_summary(json.loads(summary_path.read_text()), table))
+    return intake
 
 
 class ValidateSourceOperator(_BatchOperator):
     """Validate one source folder of a night (mappable over ``source_folder``).
 
-    :param inbox: inbox root (templated).
-    :param batch_date: batch date, ``YYYY-MM-DD`` (templated).
-    :param config_path: YAML configuration (templated).
-    :param out: output root; validated labels go to its work folder (templated).
     :param source_folder: the ``source_id=<id>`` folder name (templated).
     """
 
@@ -69,67 +110,22 @@ class ValidateSourceOperator(_BatchOperator):
 
     def execute(self, context):
         import pandas as pd
+        import pyarrow as pa
 
         from truthsieve.pipeline import ingest
-        from truthsieve.pipeline.outputs import parquet_bytes, write_atomic
+        from truthsieve.pipeline.outputs import parquet_bytes
 
         config = self.load_config()
-        inbox = local_path(self.inbox)
-        items = _items_check(inbox, self.batch_date, self.out, config)
+        items = _items_check(self.inbox, self.batch_date, self.out, config)
         item_ids = pd.Index(items.table["item_id"].to_numpy(dtype=object), dtype=object) if items.valid else None
-        folder = ingest.batch_folder(inbox, self.batch_date) / self.source_folder
-        check = ingest.validate_source(inbox, folder, config.registry, item_ids)
-        work = work_folder(self.out, self.batch_date) / "sources"
-        work.mkdir(parents=True, exist_ok=True)
-        write_atomic(work / f"{self.source_folder}.json", json.dumps(check.summary(), sort_keys=True).encode())
+        with storage.local_inbox(self.inbox, self.batch_date, folders=(self.source_folder,)) as root:
+            folder = ingest.batch_folder(root, self.batch_date) / self.source_folder
+            check = ingest.validate_source(root, folder, config.registry, item_ids)
+        work = self.work / "sources"
         if check.valid:
-            import pyarrow as pa
-
-            write_atomic(work / f"{self.source_folder}.parquet", parquet_bytes(pa.Table.from_pandas(check.table, preserve_index=False)))
+            storage.write_object(work / f"{self.source_folder}.parquet", parquet_bytes(pa.Table.from_pandas(check.table, preserve_index=False)))
+        storage.write_object(work / f"{self.source_folder}.json", json.dumps(check.summary(), sort_keys=True).encode())
         return {"source_id": check.source_id, "valid": check.valid, "errors": len(check.errors)}
-
-
-def _items_check(inbox: Path, batch_date: str, out: str, config):
-    """The night's items table, validated once per run and kept in the work folder."""
-    import pandas as pd
-    import pyarrow as pa
-
-    from truthsieve.pipeline import ingest
-    from truthsieve.pipeline.outputs import parquet_bytes, write_atomic
-
-    work = work_folder(out, batch_date)
-    summary_path, table_path = work / "items.json", work / "items.parquet"
-    if summary_path.is_file():
-        table = pd.read_parquet(table_path) if table_path.is_file() else None
-        return ingest.FileCheck.from_summary(json.loads(summary_path.read_text()), table)
-    check = ingest.validate_items(inbox, batch_date, config.rule_class.features, config.rule_class.kind == "listed")
-    work.mkdir(parents=True, exist_ok=True)
-    if check.valid:
-        write_atomic(table_path, parquet_bytes(pa.Table.from_pandas(check.table, preserve_index=False)))
-    write_atomic(summary_path, json.dumps(check.summary(), sort_keys=True).encode())
-    return check
-
-
-class _WorkReader:
-    """Rebuild a night's validated intake from the work folder."""
-
-    @staticmethod
-    def intake(inbox: Path, batch_date: str, out: str, config):
-        import pandas as pd
-
-        from truthsieve.pipeline import ingest
-        from truthsieve.pipeline.screen import Intake
-
-        intake = Intake(batch_date, _items_check(inbox, batch_date, out, config))
-        work = work_folder(out, batch_date) / "sources"
-        for folder in ingest.source_folders(inbox, batch_date):
-            summary_path = work / f"{folder.name}.json"
-            if not summary_path.is_file():
-                raise AirflowFailException(f"{folder.name} was not validated in this run")
-            table_path = work / f"{folder.name}.parquet"
-            table = pd.read_parquet(table_path) if table_path.is_file() else None
-            intake.sources.append(ingest.FileCheck.from_summary(json.loads(summary_path.read_text()), table))
-        return intake
 
 
 class FitConsensusOperator(_BatchOperator):
@@ -139,7 +135,7 @@ class FitConsensusOperator(_BatchOperator):
         from truthsieve.pipeline.analysis import prepare
 
         config = self.load_config()
-        intake = _WorkReader.intake(local_path(self.inbox), self.batch_date, self.out, config)
+        intake = _intake(self.inbox, self.batch_date, self.out, config)
         if not (intake.items.valid and intake.valid_sources):
             raise AirflowSkipException("no valid items table or no valid source: nothing to fit")
         _, rule_class, consensus = _fail_on_bad_input(lambda: prepare(intake.labels, intake.items.table, config))
@@ -163,21 +159,18 @@ class SourceIncentiveOperator(_BatchOperator):
 
         from truthsieve.core.incentives import source_incentive
         from truthsieve.pipeline.analysis import prepare
-        from truthsieve.pipeline.outputs import write_atomic
 
         config = self.load_config()
-        intake = _WorkReader.intake(local_path(self.inbox), self.batch_date, self.out, config)
+        intake = _intake(self.inbox, self.batch_date, self.out, config)
         matrix, rule_class, consensus = _fail_on_bad_input(lambda: prepare(intake.labels, intake.items.table, config))
         index = matrix.source_ids.index(self.source_id)
         result = source_incentive(matrix, rule_class, consensus, index, config.analysis.incentive_budget)
-        work = work_folder(self.out, self.batch_date) / "incentives"
-        work.mkdir(parents=True, exist_ok=True)
-        write_atomic(work / f"{self.source_id}.json", json.dumps(asdict(result), sort_keys=True).encode())
+        storage.write_object(self.work / "incentives" / f"{self.source_id}.json", json.dumps(asdict(result), sort_keys=True).encode())
         return {"source_id": self.source_id, "gain_lower": result.gain_lower, "gain_exact": result.gain_exact}
 
 
 class DecideAndPublishOperator(_BatchOperator):
-    """Route the batch and publish its outputs atomically; returns route and flagged sources."""
+    """Route the batch and publish its outputs; returns route, flagged sources and where."""
 
     def execute(self, context):
         from truthsieve.core.incentives import SourceIncentive
@@ -186,22 +179,34 @@ class DecideAndPublishOperator(_BatchOperator):
         from truthsieve.pipeline.screen import decide, quarantine_copies
 
         config = self.load_config()
-        inbox, out = local_path(self.inbox), local_path(self.out)
-        intake = _WorkReader.intake(inbox, self.batch_date, self.out, config)
+        intake = _intake(self.inbox, self.batch_date, self.out, config)
         incentives = None
         if intake.items.valid and intake.valid_sources:
-            work = work_folder(self.out, self.batch_date) / "incentives"
+            folder = self.work / "incentives"
             incentives = [
-                SourceIncentive(**json.loads((work / f"{s}.json").read_text()))
+                SourceIncentive(**json.loads((folder / f"{s}.json").read_text()))
                 for s in sorted(c.source_id for c in intake.valid_sources)
             ]
-        with date_lock(out, self.batch_date):
-            recover(out, self.batch_date)
-            history = read_history(out, self.batch_date, config.routing.drift_window)
+
+        def decide_and_collect(out_location):
+            history = read_history(out_location, self.batch_date, config.routing.drift_window)
             decision, files, _ = _fail_on_bad_input(lambda: decide(intake, config, history, incentives))
-            files.update(quarantine_copies(inbox, intake))
-            output = publish(out, self.batch_date, files)
-        write_index(out)
+            files.update(quarantine_copies(storage.location(self.inbox), intake))
+            return decision, files
+
+        if storage.is_local(self.out):
+            out = storage.local_path(self.out)
+            out.mkdir(parents=True, exist_ok=True)
+            with date_lock(out, self.batch_date):
+                recover(out, self.batch_date)
+                decision, files = decide_and_collect(out)
+                output = publish(out, self.batch_date, files)
+            write_index(out)
+        else:
+            # Object stores have no cross-process lock: the DAG's one active run is the writer.
+            decision, files = decide_and_collect(storage.location(self.out))
+            output = storage.publish_objects(self.out, self.batch_date, files)
+            write_index(storage.location(self.out))
         flagged = [s["source_id"] for s in decision["sources"] if s["flags"]]
         return {"route": decision["route"], "flagged": flagged, "output": str(output)}
 
@@ -219,10 +224,10 @@ class SendAlertsOperator(_BatchOperator):
 
         from airflow.providers.smtp.hooks.smtp import SmtpHook
 
-        from truthsieve.pipeline.outputs import batch_output, date_lock, dumps_decision, write_atomic
+        from truthsieve.pipeline.outputs import date_lock, dumps_decision, write_atomic
 
         config = self.load_config()
-        folder = batch_output(local_path(self.out), self.batch_date)
+        folder = storage.location(self.out) / f"batch_date={self.batch_date}"
         messages = json.loads((folder / "alerts.json").read_text())["messages"]
         if not messages:
             raise AirflowSkipException("nothing to alert")
@@ -234,6 +239,11 @@ class SendAlertsOperator(_BatchOperator):
                     html_content=f"<pre>{html.escape(message['body'])}</pre>",
                     from_email=config.alerts.from_address,
                 )
-        with date_lock(local_path(self.out), self.batch_date):
-            write_atomic(folder / "alerts_sent.json", dumps_decision({"batch_date": self.batch_date, "sent": messages}))
+        record = dumps_decision({"batch_date": self.batch_date, "sent": messages})
+        if storage.is_local(self.out):
+            out = storage.local_path(self.out)
+            with date_lock(out, self.batch_date):
+                write_atomic(out / f"batch_date={self.batch_date}" / "alerts_sent.json", record)
+        else:
+            storage.write_object(folder / "alerts_sent.json", record)
         return {"sent": len(messages)}

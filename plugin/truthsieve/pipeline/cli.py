@@ -95,13 +95,19 @@ def _progress(done: int, total: int, label: str) -> None:
     sys.stderr.flush()
 
 
-def write_index(out: Path) -> Path:
-    from truthsieve.pipeline.outputs import write_atomic
+def write_index(out) -> Path:
+    """Render ``index.html`` from every night's decision (``out`` may be object storage)."""
+    from truthsieve.pipeline.outputs import as_location, write_atomic
     from truthsieve.pipeline.report import render_index
 
-    decisions = [json.loads(p.read_text()) for p in sorted(out.glob("batch_date=*/decision.json"))]
+    out = as_location(out)
+    decisions = [json.loads(p.read_text()) for p in sorted(out.glob("batch_date=*/decision.json"), key=str)]
     path = out / "index.html"
-    write_atomic(path, render_index(decisions).encode())
+    page = render_index(decisions).encode()
+    if isinstance(path, Path):
+        write_atomic(path, page)
+    else:
+        path.write_bytes(page)  # one object PUT is atomic on object stores
     return path
 
 

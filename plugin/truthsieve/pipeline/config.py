@@ -123,13 +123,15 @@ class Config(_Strict):
         return {s.source_id: s for s in self.sources}
 
 
-def load_config(path: str | Path) -> Config:
+def load_config(path) -> Config:
     """Read and validate a YAML configuration file.
 
+    :param path: a path, or any path-like object with ``read_text`` (e.g. an Airflow
+        ``ObjectStoragePath``).
     :raises ConfigError: missing file, bad YAML, or a value that breaks the schema
         (the message names each offending key).
     """
-    path = Path(path)
+    path = Path(path) if isinstance(path, str) else path
     try:
         raw = yaml.safe_load(path.read_text())
     except OSError as error:

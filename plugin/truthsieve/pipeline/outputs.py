@@ -120,16 +120,24 @@ def _fsync_folder(folder: Path) -> None:
         os.close(descriptor)
 
 
-def read_history(out: str | Path, batch_date: str, window: int) -> dict[str, SourceHistory]:
+def as_location(location):
+    """A path object for ``location``: strings become local paths; path objects (local, or
+    object storage such as Airflow's ``ObjectStoragePath``) are used as they are."""
+    return Path(location) if isinstance(location, str) else location
+
+
+def read_history(out, batch_date: str, window: int) -> dict[str, SourceHistory]:
     """Pooled per-source counts of the ``window`` latest batches before ``batch_date``."""
+    out = as_location(out)
     dates = sorted(
         p.name.removeprefix("batch_date=")
-        for p in Path(out).glob("batch_date=*")
+        for p in out.glob("batch_date=*")
         if p.name.removeprefix("batch_date=") < batch_date and (p / "sources.parquet").is_file()
     )[-window:]
     totals: dict[str, list[int]] = {}
     for date in dates:
-        table = pq.read_table(batch_output(out, date) / "sources.parquet", columns=["source_id", "items", "positives", "disagreements"])
+        data = (out / f"batch_date={date}" / "sources.parquet").read_bytes()
+        table = pq.read_table(pa.BufferReader(data), columns=["source_id", "items", "positives", "disagreements"])
         for row in table.to_pylist():
             entry = totals.setdefault(row["source_id"], [0, 0, 0, 0])
             entry[0] += 1

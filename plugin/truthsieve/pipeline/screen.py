@@ -25,6 +25,7 @@ from truthsieve.pipeline.alerts import compose_alerts
 from truthsieve.pipeline.analysis import BatchAnalysis, analyse_batch
 from truthsieve.pipeline.config import Config
 from truthsieve.pipeline.outputs import (
+    as_location,
     date_lock,
     dumps_decision,
     parquet_bytes,
@@ -256,9 +257,9 @@ def decide(
     return decision, files, analysis
 
 
-def quarantine_copies(inbox: str | Path, intake: Intake) -> dict[str, bytes]:
+def quarantine_copies(inbox, intake: Intake) -> dict[str, bytes]:
     """Byte copies of every invalid input file, under ``quarantine/`` by inbox-relative path."""
-    inbox = Path(inbox)
+    inbox = as_location(inbox)
     copies = {}
     for check in [intake.items, *intake.quarantined]:
         if check.valid:
