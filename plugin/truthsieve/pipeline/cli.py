@@ -16,6 +16,7 @@ from pathlib import Path
 
 from truthsieve import __version__
 from truthsieve.exceptions import BatchLockedError, InputError
+from truthsieve.pipeline.locations import check_features_present, check_out_location
 
 EXIT_OK, EXIT_FAILURE, EXIT_INPUT, EXIT_LOCKED = 0, 1, 2, 3
 
@@ -111,15 +112,22 @@ def write_index(out) -> Path:
     return path
 
 
+def _check_features(inbox: Path, dates: Sequence[str], config) -> None:
+    if config.rule_class.kind == "threshold":
+        check_features_present(inbox, dates, config.rule_class.features)
+
+
 def backfill(inbox: Path, dates: Sequence[str], config_path: Path | None, out: Path, lock_timeout: float, config=None) -> int:
     from truthsieve.pipeline.config import load_config
     from truthsieve.pipeline.screen import screen
 
     config = config or load_config(config_path)
+    check_out_location(inbox, out)
     present = [d for d in dates if (inbox / f"batch_date={d}").is_dir()]
     if not present:
         print(f"error: no batch folders under {inbox} for {dates[0]} to {dates[-1]}", file=sys.stderr)
         return EXIT_INPUT
+    _check_features(inbox, present, config)
     results = []
     for k, date in enumerate(present):
         _progress(k, len(present), date)
@@ -144,7 +152,10 @@ def run(argv: Sequence[str] | None = None) -> int:
     from truthsieve.pipeline.screen import screen
 
     if args.command == "screen":
-        result = screen(args.inbox, args.date, load_config(args.config), args.out, args.lock_timeout)
+        config = load_config(args.config)
+        check_out_location(args.inbox, args.out)
+        _check_features(args.inbox, [args.date], config)
+        result = screen(args.inbox, args.date, config, args.out, args.lock_timeout)
         write_index(args.out)
         print(json.dumps(result.decision, sort_keys=True, indent=2) if args.json else summary(result.decision, result.output))
         return EXIT_OK
@@ -158,6 +169,7 @@ def run(argv: Sequence[str] | None = None) -> int:
     from truthsieve.pipeline import demo
 
     inbox = args.inbox or args.out.with_name(args.out.name + "-inbox")
+    check_out_location(inbox, args.out)
     if not (inbox / f"batch_date={demo.night_dates()[-1]}").is_dir():
         print(f"generating the demo inbox in {inbox}")
         demo.generate_inbox(inbox)

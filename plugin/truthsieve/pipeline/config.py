@@ -13,6 +13,30 @@ from truthsieve.core.source_checks import FLAG_CODES, FlagThresholds
 from truthsieve.exceptions import ConfigError
 
 SOURCE_ID_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$"
+RESERVED_COLUMNS = ("item_id", "item_weight")
+
+
+class _UniqueKeyLoader(yaml.SafeLoader):
+    """YAML's safe loader, except that a mapping key given twice is an error, not "last wins"."""
+
+    def construct_mapping(self, node, deep=False):
+        seen = {}
+        for key_node, _ in node.value:
+            key = self.construct_object(key_node, deep=deep)
+            try:
+                earlier = seen.get(key)
+            except TypeError:
+                continue  # an unhashable key: the base class reports it
+            if earlier is not None:
+                raise yaml.constructor.ConstructorError(
+                    None, None, f"key {key!r} given twice (lines {earlier} and {key_node.start_mark.line + 1})", None
+                )
+            seen[key] = key_node.start_mark.line + 1
+        return super().construct_mapping(node, deep=deep)
+
+
+def _one_line(text: str) -> str:
+    return " ".join(str(text).split())
 
 
 class _Strict(BaseModel):
@@ -24,6 +48,17 @@ class RuleClassConfig(_Strict):
 
     kind: Literal["constant", "threshold", "listed"]
     features: list[str] = Field(default_factory=list, description="threshold features, in tie-break order")
+
+    @field_validator("features")
+    @classmethod
+    def _plain_distinct_features(cls, value):
+        reserved = [f for f in value if f in RESERVED_COLUMNS or f.startswith("rule__")]
+        if reserved:
+            raise ValueError(f"{reserved} are not features: item_id, item_weight and rule__* columns have their own meaning")
+        twice = sorted({f for f in value if value.count(f) > 1})
+        if twice:
+            raise ValueError(f"features listed twice: {twice}")
+        return value
 
     @model_validator(mode="after")
     def _features_for_threshold(self):
@@ -128,20 +163,26 @@ def load_config(path) -> Config:
 
     :param path: a path, or any path-like object with ``read_text`` (e.g. an Airflow
         ``ObjectStoragePath``).
-    :raises ConfigError: missing file, bad YAML, or a value that breaks the schema
-        (the message names each offending key).
+    :raises ConfigError: missing file, text that is not UTF-8, bad YAML, a mapping key
+        given twice, or a value that breaks the schema (the one-line message names each
+        offending key).
     """
     path = Path(path) if isinstance(path, str) else path
     try:
-        raw = yaml.safe_load(path.read_text())
+        text = path.read_bytes().decode("utf-8")
+        raw = yaml.load(text, Loader=_UniqueKeyLoader)  # noqa: S506 - a SafeLoader subclass
     except OSError as error:
-        raise ConfigError(f"{path}: cannot read configuration: {error.strerror}") from error
+        raise ConfigError(f"{path}: cannot read configuration: {error.strerror or error}") from error
+    except UnicodeDecodeError as error:
+        raise ConfigError(f"{path}: not UTF-8 text (byte 0x{error.object[error.start]:02x} at offset {error.start})") from error
     except yaml.YAMLError as error:
-        raise ConfigError(f"{path}: not valid YAML: {error}") from error
+        raise ConfigError(f"{path}: not valid YAML: {_one_line(error)}") from error
+    if not isinstance(raw, (dict, type(None))):
+        raise ConfigError(f"{path}: invalid configuration: (top level): must be a mapping of keys, not {type(raw).__name__}")
     try:
         return Config.model_validate(raw or {})
     except ValidationError as error:
         problems = "; ".join(
-            f"{'.'.join(str(p) for p in e['loc']) or '(top level)'}: {e['msg']}" for e in error.errors()
+            f"{'.'.join(str(p) for p in e['loc']) or '(top level)'}: {_one_line(e['msg'])}" for e in error.errors()
         )
         raise ConfigError(f"{path}: invalid configuration: {problems}") from error

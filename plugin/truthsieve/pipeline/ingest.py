@@ -7,14 +7,23 @@ Layout (the contract)::
 
 Every problem becomes an :class:`ErrorRecord` naming the file (relative to the inbox),
 the row (1 = first row; None when the problem is not about one row), the column and
-the rule broken. Files are read once, as bytes, so the recorded sha256 is the hash of
-exactly what was parsed. Nothing here writes, moves or deletes anything.
+the rule broken. Entries that are not part of the layout become notes (see
+:mod:`truthsieve.pipeline.layout`). Files are read once, as bytes, through their
+resolved path and only when that lies inside the inbox, so the recorded sha256 is the
+hash of exactly what was parsed and quarantine copies are those same bytes. Nothing
+here writes, moves or deletes anything.
+
+Numeric domain (checked here, so the core never meets an overflow): a feature value
+must be finite with ``|x| <= FEATURE_LIMIT`` (1e300), so the midpoint of any two values
+is finite; an ``item_weight`` must be 0 or in ``[ITEM_WEIGHT_MIN, ITEM_WEIGHT_MAX]``
+(1e-300 to 1e300) and the weights of the table must sum to at most ``ITEM_WEIGHT_MAX``
+and to more than 0, so every risk's numerator and denominator is a finite positive sum.
 """
 
 from __future__ import annotations
 
-import hashlib
 import re
+
 from collections.abc import Iterable, Mapping
 from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
@@ -22,13 +31,18 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from truthsieve.core.rules import RULE_COLUMN_PREFIX
+from truthsieve.pipeline import layout
+from truthsieve.pipeline.layout import ITEMS_FILE, Note, display, inside, read_inside, relative, sha256
 
 SOURCE_ID_RE = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}")
-ITEMS_FILE = "items.parquet"
 LABEL_COLUMNS = ("item_id", "label")
+FEATURE_LIMIT = 1e300
+ITEM_WEIGHT_MIN, ITEM_WEIGHT_MAX = 1e-300, 1e300
+CONTROL_CHARACTERS = r"[\x00-\x1f\x7f]"
 # Enough rows per (file, rule) to find the pattern; the rest are counted in one record.
 MAX_ROWS_PER_RULE = 20
 
@@ -56,23 +70,29 @@ class InputFile:
 
 @dataclass
 class FileCheck:
-    """The outcome of validating one group of files (the items table, or one source)."""
+    """The outcome of validating one group of files (the items table, or one source).
+
+    ``contents`` keeps the bytes read of an invalid group, for its quarantine copies.
+    """
 
     source_id: str | None
     table: pd.DataFrame | None
     inputs: list[InputFile] = field(default_factory=list)
     errors: list[ErrorRecord] = field(default_factory=list)
+    notes: list[Note] = field(default_factory=list)
+    contents: dict[str, bytes] = field(default_factory=dict, repr=False)
 
     @property
     def valid(self) -> bool:
         return self.table is not None and not self.errors
 
     def summary(self) -> dict:
-        """Everything but the table, as JSON-ready data (the table travels as Parquet)."""
+        """Everything but the table and bytes, as JSON-ready data (the table travels as Parquet)."""
         return {
             "source_id": self.source_id,
             "inputs": [asdict(f) for f in self.inputs],
             "errors": [e.as_dict() for e in self.errors],
+            "notes": [n.as_dict() for n in self.notes],
         }
 
     @classmethod
@@ -82,37 +102,64 @@ class FileCheck:
             table=table,
             inputs=[InputFile(**f) for f in summary["inputs"]],
             errors=[ErrorRecord(**e) for e in summary["errors"]],
+            notes=[Note(**n) for n in summary.get("notes", [])],
         )
+
+    def _read(self, path: Path, inbox: Path) -> tuple[str, bytes | None]:
+        name = relative(path, inbox)
+        try:
+            data = read_inside(path, inbox)
+        except PermissionError:
+            self.errors.append(ErrorRecord(name, None, None, "link_outside_inbox", "a link whose target lies outside the inbox; not read"))
+            return name, None
+        except OSError as error:
+            self.errors.append(ErrorRecord(name, None, None, "unreadable_file", f"cannot read: {error.strerror}"))
+            return name, None
+        self.contents[name] = data
+        return name, data
+
+
+def quarantine_bytes(inbox: str | Path, check: FileCheck) -> dict[str, bytes]:
+    """Inbox-relative path -> bytes of every input of an invalid check.
+
+    The bytes are those read at validation; a check rebuilt from its summary (in another
+    process) is re-read only through a path inside the inbox and only if its sha256 is
+    still the one recorded, so a copy is never of anything but what was validated.
+    """
+    root = Path(inbox) if isinstance(inbox, str) else inbox
+    copies = {}
+    for f in check.inputs:
+        data = check.contents.get(f.path)
+        if data is None:
+            try:  # object storage has no links; a local inbox is read only inside itself
+                data = read_inside(root / f.path, root) if isinstance(root, Path) else (root / f.path).read_bytes()
+            except OSError:
+                continue
+            if sha256(data) != f.sha256:
+                continue
+        copies[f.path] = data
+    return copies
 
 
 def batch_folder(inbox: str | Path, batch_date: str) -> Path:
     return Path(inbox) / f"batch_date={batch_date}"
 
 
-def _read(path: Path, inbox: Path) -> tuple[str, bytes | None, ErrorRecord | None]:
-    relative = path.relative_to(inbox).as_posix()
-    try:
-        data = path.read_bytes()
-    except OSError as error:
-        return relative, None, ErrorRecord(relative, None, None, "unreadable_file", f"cannot read: {error.strerror}")
-    return relative, data, None
-
-
-def _parse(relative: str, data: bytes) -> tuple[pa.Table | None, ErrorRecord | None]:
+def _parse(relative_path: str, data: bytes) -> tuple[pa.Table | None, ErrorRecord | None]:
     try:
         table = pq.read_table(pa.BufferReader(data))
     except (pa.ArrowException, OSError, ValueError) as error:
-        return None, ErrorRecord(relative, None, None, "unreadable_parquet", f"not a readable Parquet file: {error}")
+        return None, ErrorRecord(relative_path, None, None, "unreadable_parquet", f"not a readable Parquet file: {error}")
     if table.num_rows == 0:
-        return None, ErrorRecord(relative, None, None, "empty_file", "the file has no rows")
+        return None, ErrorRecord(relative_path, None, None, "empty_file", "the file has no rows")
     return table, None
 
 
-def _row_errors(relative: str, rows: np.ndarray, column: str, rule: str, message: str) -> list[ErrorRecord]:
-    records = [ErrorRecord(relative, int(r) + 1, column, rule, message) for r in rows[:MAX_ROWS_PER_RULE]]
+def _row_errors(relative_path: str, rows: np.ndarray, column: str, rule: str, message: str) -> list[ErrorRecord]:
+    records = [ErrorRecord(relative_path, int(r) + 1, column, rule, message) for r in rows[:MAX_ROWS_PER_RULE]]
     if len(rows) > MAX_ROWS_PER_RULE:
         records.append(
-            ErrorRecord(relative, None, column, rule, f"{len(rows) - MAX_ROWS_PER_RULE} more rows break this rule")
+            ErrorRecord(relative_path, None, column, rule, f"{len(rows) - MAX_ROWS_PER_RULE} more rows break this rule")
         )
     return records
 
@@ -125,170 +172,257 @@ def _is_number(kind: pa.DataType) -> bool:
     return pa.types.is_integer(kind) or pa.types.is_floating(kind) or pa.types.is_decimal(kind)
 
 
-def validate_items(inbox: str | Path, batch_date: str, features: Iterable[str] = (), listed: bool = False) -> FileCheck:
-    """Validate ``items.parquet``: unique non-null string ids, finite numeric features,
-    non-negative finite ``item_weight``, boolean ``rule__*`` columns."""
-    inbox = Path(inbox)
-    path = batch_folder(inbox, batch_date) / ITEMS_FILE
-    check = FileCheck(source_id=None, table=None)
-    if not path.is_file():
-        relative = path.relative_to(inbox).as_posix()
-        check.errors.append(ErrorRecord(relative, None, None, "missing_file", "the batch has no items table"))
-        return check
-    relative, data, error = _read(path, inbox)
-    if error:
-        check.errors.append(error)
-        return check
-    table, error = _parse(relative, data)
-    check.inputs.append(
-        InputFile(relative, hashlib.sha256(data).hexdigest(), table.num_rows if table else None, None, False)
+def _id_errors(relative_path: str, column: pa.ChunkedArray) -> list[ErrorRecord]:
+    """Null ids and ids holding a NUL or other control character (``X`` and ``X\\x00`` look alike)."""
+    control = pc.fill_null(pc.match_substring_regex(column, CONTROL_CHARACTERS), False)
+    return _row_errors(relative_path, np.flatnonzero(column.is_null().to_numpy(zero_copy_only=False)), "item_id", "null_item_id", "item_id is null") + _row_errors(
+        relative_path, np.flatnonzero(control.to_numpy(zero_copy_only=False)), "item_id", "control_character_in_id",
+        "item_id holds a NUL or other control character",
     )
-    if error:
-        check.errors.append(error)
-        return check
 
-    errors = check.errors
-    schema = table.schema
+
+def _schema_errors(relative_path: str, schema: pa.Schema, features: Iterable[str], listed: bool) -> list[ErrorRecord]:
+    errors = []
     if "item_id" not in schema.names:
-        errors.append(ErrorRecord(relative, None, "item_id", "missing_column", "required column item_id is missing"))
+        errors.append(ErrorRecord(relative_path, None, "item_id", "missing_column", "required column item_id is missing"))
     elif not _is_string(schema.field("item_id").type):
-        errors.append(ErrorRecord(relative, None, "item_id", "wrong_type", f"item_id must be string, not {schema.field('item_id').type}"))
+        errors.append(ErrorRecord(relative_path, None, "item_id", "wrong_type", f"item_id must be string, not {schema.field('item_id').type}"))
     for name in features:
         if name not in schema.names:
-            errors.append(ErrorRecord(relative, None, name, "missing_column", f"configured feature {name} is missing"))
+            errors.append(ErrorRecord(
+                relative_path, None, name, "configured_column_missing",
+                f"the configuration (rule_class.features) names column {name}, which this items table does not have",
+            ))
     for name in schema.names:
         kind = schema.field(name).type
         if name == "item_id":
             continue
         if name.startswith(RULE_COLUMN_PREFIX):
             if not pa.types.is_boolean(kind):
-                errors.append(ErrorRecord(relative, None, name, "wrong_type", f"rule column must be bool, not {kind}"))
+                errors.append(ErrorRecord(relative_path, None, name, "wrong_type", f"rule column must be bool, not {kind}"))
         elif not _is_number(kind):
-            errors.append(ErrorRecord(relative, None, name, "wrong_type", f"feature columns must be numeric, not {kind}"))
+            errors.append(ErrorRecord(relative_path, None, name, "wrong_type", f"feature columns must be numeric, not {kind}"))
     if listed and not any(n.startswith(RULE_COLUMN_PREFIX) for n in schema.names):
-        errors.append(ErrorRecord(relative, None, None, "missing_column", f"the listed rule class needs {RULE_COLUMN_PREFIX}* columns"))
+        errors.append(ErrorRecord(relative_path, None, None, "missing_column", f"the listed rule class needs {RULE_COLUMN_PREFIX}* columns"))
+    return errors
+
+
+def _weight_errors(relative_path: str, weights: np.ndarray) -> list[ErrorRecord]:
+    finite = np.isfinite(weights)
+    errors = _row_errors(relative_path, np.flatnonzero(~finite), "item_weight", "non_finite_weight", "item_weight is NaN, infinite or null")
+    errors += _row_errors(relative_path, np.flatnonzero(weights < 0), "item_weight", "negative_item_weight", "item_weight is negative")
+    errors += _row_errors(
+        relative_path, np.flatnonzero(finite & ((weights > ITEM_WEIGHT_MAX) | ((weights > 0) & (weights < ITEM_WEIGHT_MIN)))),
+        "item_weight", "item_weight_out_of_range", f"item_weight must be 0 or between {ITEM_WEIGHT_MIN:g} and {ITEM_WEIGHT_MAX:g}",
+    )
+    if errors:
+        return errors
+    total = float(np.sum(weights / ITEM_WEIGHT_MAX)) * ITEM_WEIGHT_MAX  # scaled: the sum itself cannot overflow
+    if not total > 0:
+        errors.append(ErrorRecord(relative_path, None, "item_weight", "zero_total_item_weight", "every item_weight is 0, so no risk can be measured"))
+    elif total > ITEM_WEIGHT_MAX:
+        errors.append(ErrorRecord(relative_path, None, "item_weight", "item_weight_total_out_of_range", f"the item weights sum to more than {ITEM_WEIGHT_MAX:g}"))
+    return errors
+
+
+def validate_items(
+    inbox: str | Path, batch_date: str, features: Iterable[str] = (), listed: bool = False, kind: str | None = None
+) -> FileCheck:
+    """Validate ``items.parquet``: unique string ids without control characters, finite
+    numeric features within the numeric domain, ``item_weight`` within the numeric
+    domain, boolean ``rule__*`` columns. The batch folder's notes travel on this check.
+
+    :param kind: the rule class kind; with ``threshold`` (the default when features are
+        given and ``listed`` is false) every feature being constant is an error.
+    """
+    inbox, features = Path(inbox), list(features)
+    scan = layout.scan_batch(inbox, batch_date)
+    check = FileCheck(source_id=None, table=None, notes=list(scan.notes))
+    path = batch_folder(inbox, batch_date) / ITEMS_FILE
+    if scan.items is None or not (scan.items.is_file() or not inside(scan.items, inbox)):
+        check.errors.append(ErrorRecord(relative(path, inbox), None, None, "missing_file", "the batch has no items table"))
+        return check
+    name, data = check._read(path, inbox)
+    if data is None:
+        return check
+    table, error = _parse(name, data)
+    check.inputs.append(InputFile(name, sha256(data), table.num_rows if table else None, None, False))
+    if error:
+        check.errors.append(error)
+        return check
+    errors = check.errors
+    errors += _schema_errors(name, table.schema, features, listed)
     if errors:
         return check
 
+    errors += _id_errors(name, table.column("item_id"))
     frame = table.to_pandas()
     ids = frame["item_id"]
-    errors += _row_errors(relative, np.flatnonzero(ids.isna().to_numpy()), "item_id", "null_item_id", "item_id is null")
     errors += _row_errors(
-        relative, np.flatnonzero(ids.duplicated(keep="first").to_numpy() & ids.notna().to_numpy()),
+        name, np.flatnonzero(ids.duplicated(keep="first").to_numpy() & ids.notna().to_numpy()),
         "item_id", "duplicate_item_id", "item_id appears on an earlier row",
     )
-    for name in features:
-        values = frame[name].to_numpy(dtype=np.float64, na_value=np.nan)
-        errors += _row_errors(relative, np.flatnonzero(~np.isfinite(values)), name, "non_finite_feature", "feature is NaN, infinite or null")
+    constant = True
+    for feature in features:
+        values = frame[feature].to_numpy(dtype=np.float64, na_value=np.nan)
+        finite = np.isfinite(values)
+        errors += _row_errors(name, np.flatnonzero(~finite), feature, "non_finite_feature", "feature is NaN, infinite or null")
+        errors += _row_errors(
+            name, np.flatnonzero(finite & (np.abs(values) > FEATURE_LIMIT)), feature, "feature_out_of_range",
+            f"feature magnitude is above {FEATURE_LIMIT:g}",
+        )
+        constant = constant and bool((values == values[0]).all())
+    if (kind or ("listed" if listed else "threshold")) == "threshold" and features and constant and not errors:
+        errors.append(ErrorRecord(
+            name, None, features[0], "constant_features",
+            f"every configured feature ({', '.join(features)}) has one value on every item, so no threshold can be fitted",
+        ))
     if "item_weight" in frame.columns:
-        weights = frame["item_weight"].to_numpy(dtype=np.float64, na_value=np.nan)
-        errors += _row_errors(relative, np.flatnonzero(~np.isfinite(weights)), "item_weight", "non_finite_weight", "item_weight is NaN, infinite or null")
-        errors += _row_errors(relative, np.flatnonzero(weights < 0), "item_weight", "negative_item_weight", "item_weight is negative")
-    for name in frame.columns:
-        if name.startswith(RULE_COLUMN_PREFIX):
-            errors += _row_errors(relative, np.flatnonzero(frame[name].isna().to_numpy()), name, "null_rule_value", "rule value is null")
+        errors += _weight_errors(name, frame["item_weight"].to_numpy(dtype=np.float64, na_value=np.nan))
+    for column in frame.columns:
+        if column.startswith(RULE_COLUMN_PREFIX):
+            errors += _row_errors(name, np.flatnonzero(frame[column].isna().to_numpy()), column, "null_rule_value", "rule value is null")
     if not errors:
         check.table = frame
         check.inputs[0] = replace(check.inputs[0], valid=True)
+        check.contents.clear()
     return check
 
 
 def source_folders(inbox: str | Path, batch_date: str) -> list[Path]:
-    """The ``source_id=*`` folders of a batch, sorted by name."""
-    folder = batch_folder(inbox, batch_date)
-    return sorted(p for p in folder.glob("source_id=*") if p.is_dir())
+    """The ``source_id=*`` folders of a batch, sorted by name (links leaving the inbox
+    included: :func:`validate_source` records their refusal)."""
+    return layout.scan_batch(inbox, batch_date).sources
 
 
 def validate_source(
-    inbox: str | Path, folder: str | Path, registry: Mapping[str, object], item_ids: pd.Index | None
+    inbox: str | Path,
+    folder: str | Path,
+    registry: Mapping[str, object],
+    item_ids: pd.Index | None,
+    item_weights: np.ndarray | None = None,
 ) -> FileCheck:
     """Validate every Parquet file of one source folder.
 
     A source is valid only when all its files are; its labels are returned as the long
-    table (``item_id``, ``source_id``, ``label``) with labels as int8 0/1.
+    table (``item_id``, ``source_id``, ``label``) with labels as int8 0/1. An item
+    labelled twice, in one file or across two, is a ``duplicate_label`` naming both places.
+
+    :param item_weights: the items' weights aligned with ``item_ids``; when given, a
+        source whose labelled items all weigh 0 is an error (``no_positive_weight``).
     """
     inbox, folder = Path(inbox), Path(folder)
-    source_id = folder.name.removeprefix("source_id=")
-    folder_relative = folder.relative_to(inbox).as_posix()
+    source_id = display(folder.name.removeprefix(layout.SOURCE_PREFIX))
+    folder_name = relative(folder, inbox)
     check = FileCheck(source_id=source_id, table=None)
-    files = sorted(folder.glob("*.parquet"))
+    if not inside(folder, inbox):
+        check.errors.append(ErrorRecord(folder_name, None, None, "link_outside_inbox", "the source folder is a link whose target lies outside the inbox; not read"))
+        return check
+    entries = layout.scan_source(inbox, folder)
+    check.notes += entries.notes
+    for path, code in entries.refused:
+        check.errors.append(ErrorRecord(relative(path, inbox), None, None, code, layout.NOTE_CODES[code]))
     contents = []
-    for path in files:
-        relative, data, error = _read(path, inbox)
-        if error:
-            check.errors.append(error)
-            continue
-        contents.append((relative, data))
-        check.inputs.append(InputFile(relative, hashlib.sha256(data).hexdigest(), None, source_id, False))
+    for path in entries.label_files:
+        name, data = check._read(path, inbox)
+        if data is not None:
+            contents.append((name, data))
+            check.inputs.append(InputFile(name, sha256(data), None, source_id, False))
     if not SOURCE_ID_RE.fullmatch(source_id):
-        check.errors.append(ErrorRecord(folder_relative, None, "source_id", "bad_source_id", "source id must match [A-Za-z0-9][A-Za-z0-9_.-]{0,63}"))
+        check.errors.append(ErrorRecord(folder_name, None, "source_id", "bad_source_id", "source id must match [A-Za-z0-9][A-Za-z0-9_.-]{0,63}"))
         return check
     if source_id not in registry:
-        check.errors.append(ErrorRecord(folder_relative, None, "source_id", "unknown_source", f"source {source_id} is not in the registry"))
+        check.errors.append(ErrorRecord(folder_name, None, "source_id", "unknown_source", f"source {source_id} is not in the registry"))
         return check
-    if not files:
-        check.errors.append(ErrorRecord(folder_relative, None, None, "no_label_files", "the source folder holds no .parquet file"))
+    if not entries.label_files and not entries.refused:
+        check.errors.append(ErrorRecord(folder_name, None, None, "no_label_files", "the source folder holds no .parquet file"))
         return check
 
-    frames = []
-    seen = pd.Index([], dtype=object)
-    for index, (relative, data) in enumerate(contents):
-        table, error = _parse(relative, data)
+    frames, places = [], []
+    for index, (name, data) in enumerate(contents):
+        table, error = _parse(name, data)
         if table is not None:
             check.inputs[index] = replace(check.inputs[index], rows=table.num_rows)
         if error:
             check.errors.append(error)
             continue
-        frame, errors = _validate_labels(relative, table, item_ids, seen)
+        frame, errors = _validate_labels(name, table, item_ids)
         check.errors += errors
         if frame is not None:
             frames.append(frame)
-            seen = seen.append(pd.Index(frame["item_id"].to_numpy(), dtype=object))
+            places.append(name)
+    if frames:
+        check.errors += _duplicate_errors(frames, places)
+    if not check.errors and item_weights is not None:
+        labels = pd.concat(frames, ignore_index=True)
+        if not item_weights[item_ids.get_indexer(labels["item_id"].to_numpy())].sum() > 0:
+            check.errors.append(ErrorRecord(folder_name, None, "item_weight", "no_positive_weight", "every item this source labelled has item_weight 0"))
     if not check.errors:
         labels = pd.concat(frames, ignore_index=True)
         labels.insert(1, "source_id", source_id)
         check.table = labels
         check.inputs = [replace(f, valid=True) for f in check.inputs]
+        check.contents.clear()
     return check
 
 
-def _validate_labels(
-    relative: str, table: pa.Table, item_ids: pd.Index | None, seen: pd.Index
-) -> tuple[pd.DataFrame | None, list[ErrorRecord]]:
+def _duplicate_errors(frames: list[pd.DataFrame], places: list[str]) -> list[ErrorRecord]:
+    """``duplicate_label`` for every later occurrence of an item, naming the first one's file and row."""
+    ids = np.concatenate([f["item_id"].to_numpy(dtype=object) for f in frames])
+    codes, _ = pd.factorize(ids)
+    _, first_of_code = np.unique(codes, return_index=True)
+    first = first_of_code[codes]
+    repeated = np.flatnonzero(first != np.arange(len(ids)))
+    if not len(repeated):
+        return []
+    starts = np.cumsum([0] + [len(f) for f in frames])
+    file_of = np.searchsorted(starts, np.arange(len(ids)), side="right") - 1
+    errors = []
+    for k in range(len(frames)):
+        rows = repeated[file_of[repeated] == k]
+        for position in rows[:MAX_ROWS_PER_RULE]:
+            earlier = first[position]
+            where = places[file_of[earlier]]
+            errors.append(ErrorRecord(
+                places[k], int(position - starts[k]) + 1, "item_id", "duplicate_label",
+                f"this source already labelled this item in {where} row {int(earlier - starts[file_of[earlier]]) + 1}",
+            ))
+        if len(rows) > MAX_ROWS_PER_RULE:
+            errors.append(ErrorRecord(places[k], None, "item_id", "duplicate_label", f"{len(rows) - MAX_ROWS_PER_RULE} more rows break this rule"))
+    return errors
+
+
+def _validate_labels(relative_path: str, table: pa.Table, item_ids: pd.Index | None) -> tuple[pd.DataFrame | None, list[ErrorRecord]]:
     errors: list[ErrorRecord] = []
     schema = table.schema
     for name in LABEL_COLUMNS:
         if name not in schema.names:
-            errors.append(ErrorRecord(relative, None, name, "missing_column", f"required column {name} is missing"))
+            errors.append(ErrorRecord(relative_path, None, name, "missing_column", f"required column {name} is missing"))
     for name in schema.names:
         if name not in LABEL_COLUMNS:
-            errors.append(ErrorRecord(relative, None, name, "extra_column", f"unexpected column {name}; label files hold item_id and label only"))
+            errors.append(ErrorRecord(relative_path, None, name, "extra_column", f"unexpected column {name}; label files hold item_id and label only"))
     if "item_id" in schema.names and not _is_string(schema.field("item_id").type):
-        errors.append(ErrorRecord(relative, None, "item_id", "wrong_type", f"item_id must be string, not {schema.field('item_id').type}"))
+        errors.append(ErrorRecord(relative_path, None, "item_id", "wrong_type", f"item_id must be string, not {schema.field('item_id').type}"))
     if "label" in schema.names:
         kind = schema.field("label").type
         if not (pa.types.is_boolean(kind) or pa.types.is_integer(kind)):
-            errors.append(ErrorRecord(relative, None, "label", "wrong_type", f"label must be bool or integer 0/1, not {kind}"))
+            errors.append(ErrorRecord(relative_path, None, "label", "wrong_type", f"label must be bool or integer 0/1, not {kind}"))
     if errors:
         return None, errors
 
+    errors += _id_errors(relative_path, table.column("item_id"))
     # Plain object arrays: pandas' Arrow-backed strings hash element by element in Python.
     ids = pd.Series(table.column("item_id").to_numpy(zero_copy_only=False), dtype=object)
     raw = pd.Series(table.column("label").to_numpy(zero_copy_only=False))
-    errors += _row_errors(relative, np.flatnonzero(ids.isna().to_numpy()), "item_id", "null_item_id", "item_id is null")
-    errors += _row_errors(relative, np.flatnonzero(raw.isna().to_numpy()), "label", "null_label", "label is null")
+    errors += _row_errors(relative_path, np.flatnonzero(raw.isna().to_numpy()), "label", "null_label", "label is null")
     numeric = raw.astype("float64")
     errors += _row_errors(
-        relative, np.flatnonzero(raw.notna().to_numpy() & ~numeric.isin([0.0, 1.0]).to_numpy()),
+        relative_path, np.flatnonzero(raw.notna().to_numpy() & ~numeric.isin([0.0, 1.0]).to_numpy()),
         "label", "label_out_of_range", "label must be 0 or 1",
     )
-    repeated = ids.duplicated(keep="first").to_numpy()
-    if len(seen):
-        repeated |= ids.isin(seen).to_numpy()
-    errors += _row_errors(relative, np.flatnonzero(repeated & ids.notna().to_numpy()), "item_id", "duplicate_label", "this source already labelled this item")
     if item_ids is not None:
         unknown = ids.notna().to_numpy() & (item_ids.get_indexer(ids.fillna("").to_numpy()) < 0)
-        errors += _row_errors(relative, np.flatnonzero(unknown), "item_id", "unknown_item", "item_id is not in the items table")
+        errors += _row_errors(relative_path, np.flatnonzero(unknown), "item_id", "unknown_item", "item_id is not in the items table")
     if errors:
         return None, errors
     return pd.DataFrame({"item_id": ids.to_numpy(), "label": numeric.to_numpy().astype(np.int8)}), []

@@ -262,6 +262,11 @@ def render_report(decision: Mapping, analysis=None) -> str:
                 text_columns=(0, 2, 3, 4),
             )
         )
+    if decision.get("absent") or decision.get("notes"):
+        parts.append("<h2 id='absent-notes'>Absent sources and notes on the inbox</h2>")
+        rows = [[_e(a["source_id"]), _e(a["why"]), ""] for a in decision.get("absent", [])]
+        rows += [[_e(n["path"]), _e(n["code"]), _e(n["message"])] for n in decision.get("notes", [])]
+        parts.append(_table(["source or path", "code", "message"], rows, text_columns=(0, 1, 2)))
     return _page(f"truthsieve batch {date}", "".join(parts))
 
 

@@ -78,11 +78,15 @@ def ingest_batch(inbox: str | Path, batch_date: str, config: Config) -> Intake:
     folder = ingest.batch_folder(inbox, batch_date)
     if not folder.is_dir():
         raise InputError(f"{folder}: no such batch folder")
-    items = ingest.validate_items(inbox, batch_date, config.rule_class.features, config.rule_class.kind == "listed")
+    kind = config.rule_class.kind
+    items = ingest.validate_items(inbox, batch_date, config.rule_class.features, kind == "listed", kind)
     item_ids = pd.Index(items.table["item_id"].to_numpy(dtype=object), dtype=object) if items.valid else None
+    weights = None
+    if items.valid:
+        weights = items.table["item_weight"].to_numpy(dtype=np.float64) if "item_weight" in items.table else np.ones(len(item_ids))
     intake = Intake(batch_date, items)
     for source_folder in ingest.source_folders(inbox, batch_date):
-        intake.sources.append(ingest.validate_source(inbox, source_folder, config.registry, item_ids))
+        intake.sources.append(ingest.validate_source(inbox, source_folder, config.registry, item_ids, weights))
     return intake
 
 
@@ -123,6 +127,8 @@ def build_decision(
         ]
         + ([{"source_id": None, "files": [f.path for f in intake.items.inputs]}] if not intake.items.valid else []),
         "errors": [e.as_dict() for e in intake.errors],
+        "notes": [n.as_dict() for check in [intake.items, *intake.sources] for n in check.notes],
+        "absent": absent_sources(intake, config),
         "tool_version": __version__,
     }
     if analysis is None:
@@ -161,6 +167,17 @@ def build_decision(
         }
     )
     return decision
+
+
+def absent_sources(intake: Intake, config: Config) -> list[dict]:
+    """Registered sources without valid labels tonight: ``no_folder`` or ``quarantined``."""
+    valid = {s.source_id for s in intake.valid_sources}
+    quarantined = {s.source_id for s in intake.quarantined}
+    return [
+        {"source_id": s, "why": "quarantined" if s in quarantined else "no_folder"}
+        for s in sorted(config.registry)
+        if s not in valid
+    ]
 
 
 def _source_entry(analysis: BatchAnalysis, s) -> dict:
@@ -258,15 +275,15 @@ def decide(
 
 
 def quarantine_copies(inbox, intake: Intake) -> dict[str, bytes]:
-    """Byte copies of every invalid input file, under ``quarantine/`` by inbox-relative path."""
-    inbox = as_location(inbox)
+    """Byte copies of every invalid input file, under ``quarantine/`` by inbox-relative path:
+    the bytes validated, never a file re-read through a link leaving the inbox."""
     copies = {}
     for check in [intake.items, *intake.quarantined]:
         if check.valid:
             continue
-        for f in check.inputs:
-            relative = Path(f.path).relative_to(f"batch_date={intake.batch_date}")
-            copies[f"quarantine/{relative.as_posix()}"] = (inbox / f.path).read_bytes()
+        for path, data in ingest.quarantine_bytes(inbox, check).items():
+            relative = Path(path).relative_to(f"batch_date={intake.batch_date}")
+            copies[f"quarantine/{relative.as_posix()}"] = data
     return copies
 
 

@@ -1,0 +1,194 @@
+"""Which entries of one night's batch folder are part of the layout, and reading them safely.
+
+The layout (the contract) is ``items.parquet`` and ``source_id=<id>/`` folders holding
+``*.parquet`` label files. Every other entry becomes a :class:`Note` in the decision
+(code, path, message), so nothing delivered is ignored without a word. Some of them
+are errors too, because labels were probably meant to be read (see ``ingest``):
+
+============================  =====================================================  ======
+code                          entry                                                  error?
+============================  =====================================================  ======
+``stray_file``                a file that is not part of the layout                  no
+``stray_folder``              a folder that is not part of the layout                no
+``stray_parquet``             a Parquet file at batch level other than the items     no
+``misnamed_items_file``       ``Items.parquet``, ``items.PARQUET``, ...              no [1]_
+``misnamed_source_folder``    ``Source_id=x/``, ``SOURCE_ID=x/``, ...                no [2]_
+``source_not_a_folder``       a plain file named ``source_id=x``                     no [2]_
+``misnamed_label_file``       in a source folder: ``*.PARQUET``, ``*.csv``, ...      yes
+``undecodable_name``          a name that is not valid UTF-8                         yes in a source folder
+``link_outside_inbox``        a link whose target lies outside the inbox             yes
+============================  =====================================================  ======
+
+.. [1] ``items.parquet`` is then missing, which is an error of its own.
+.. [2] the source, if registered, is listed under ``absent`` with ``why: no_folder``.
+
+Every path is checked after resolving links: an entry whose real path leaves the inbox
+is never opened, read or copied.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+from dataclasses import asdict, dataclass
+from pathlib import Path
+
+from truthsieve.exceptions import InputError
+
+ITEMS_FILE = "items.parquet"
+SOURCE_PREFIX = "source_id="
+LABEL_SUFFIX = ".parquet"
+# Suffixes of files that plausibly hold labels in another spelling or format.
+DATA_SUFFIXES = frozenset({".parquet", ".parq", ".pq", ".csv", ".tsv", ".json", ".jsonl", ".arrow", ".feather", ".xlsx", ".xls"})
+
+NOTE_CODES = {
+    "stray_file": "a file that is not part of the layout was not read",
+    "stray_folder": "a folder that is not part of the layout was not read",
+    "stray_parquet": "a Parquet file at batch level was not read; label files go inside source_id=<id>/",
+    "misnamed_items_file": "a file named like the items table in another spelling was not read; the name is items.parquet",
+    "misnamed_source_folder": "a folder named like a source folder in another spelling was not read; the prefix is source_id=",
+    "source_not_a_folder": "a plain file named like a source folder was not read; sources are folders",
+    "misnamed_label_file": "a file in a source folder that looks like labels but is not named *.parquet; the source is quarantined",
+    "undecodable_name": "a name that is not valid UTF-8 was not read",
+    "link_outside_inbox": "a link leaving the inbox was not followed",
+}
+
+
+@dataclass(frozen=True)
+class Note:
+    code: str
+    path: str
+    message: str
+
+    def as_dict(self) -> dict:
+        return asdict(self)
+
+
+def display(name: str) -> str:
+    """A printable, JSON-safe form of a file name: undecodable bytes as ``\\xNN``."""
+    return name.encode("utf-8", "surrogateescape").decode("utf-8", "backslashreplace")
+
+
+def decodable(name: str) -> bool:
+    try:
+        name.encode("utf-8")
+    except UnicodeEncodeError:
+        return False
+    return True
+
+
+def inside(path: Path, root: Path) -> bool:
+    """True when ``path``'s real location (every link resolved) lies inside ``root``'s."""
+    try:
+        return Path(os.path.realpath(path)).is_relative_to(Path(os.path.realpath(root)))
+    except (OSError, ValueError):
+        return False
+
+
+def relative(path: Path, inbox: Path) -> str:
+    return display(path.relative_to(inbox).as_posix())
+
+
+def read_inside(path: Path, inbox: Path) -> bytes:
+    """The bytes of ``path`` read through its resolved location, only if that is inside the inbox.
+
+    :raises PermissionError: the resolved path leaves the inbox (nothing is opened).
+    """
+    if not inside(path, inbox):
+        raise PermissionError(f"{relative(path, inbox)} leaves the inbox")
+    return Path(os.path.realpath(path)).read_bytes()
+
+
+def sha256(data: bytes) -> str:
+    return hashlib.sha256(data).hexdigest()
+
+
+@dataclass(frozen=True)
+class BatchLayout:
+    """The entries of a batch folder: the items file entry, source folders and notes."""
+
+    items: Path | None
+    sources: list[Path]
+    notes: list[Note]
+
+
+def _note(code: str, path: Path, inbox: Path) -> Note:
+    return Note(code, relative(path, inbox), NOTE_CODES[code])
+
+
+def scan_batch(inbox: str | Path, batch_date: str) -> BatchLayout:
+    """Sort the batch folder's entries into the layout and notes (nothing is read).
+
+    :raises InputError: the batch folder is missing or is a link leaving the inbox.
+    """
+    inbox = Path(inbox)
+    folder = inbox / f"batch_date={batch_date}"
+    if not folder.is_dir():
+        raise InputError(f"{folder}: no such batch folder")
+    if not inside(folder, inbox):
+        raise InputError(f"{folder}: the batch folder is a link leaving the inbox; refused")
+    items, sources, notes = None, [], []
+    for entry in sorted(os.scandir(folder), key=lambda e: e.name):
+        path, name = Path(entry.path), entry.name
+        lower = name.lower()
+        if not decodable(name):
+            notes.append(_note("undecodable_name", path, inbox))
+        elif entry.is_symlink() and not inside(path, inbox):
+            if name != ITEMS_FILE and not name.startswith(SOURCE_PREFIX):
+                notes.append(_note("link_outside_inbox", path, inbox))
+            elif name == ITEMS_FILE:
+                items = path  # validate_items records the refusal
+            else:
+                sources.append(path)  # validate_source records the refusal
+        elif name == ITEMS_FILE:
+            items = path
+        elif name.startswith(SOURCE_PREFIX):
+            if entry.is_dir():
+                sources.append(path)
+            else:
+                notes.append(_note("source_not_a_folder", path, inbox))
+        elif lower.startswith(SOURCE_PREFIX):
+            notes.append(_note("misnamed_source_folder", path, inbox))
+        elif lower == ITEMS_FILE:
+            notes.append(_note("misnamed_items_file", path, inbox))
+        elif entry.is_dir():
+            notes.append(_note("stray_folder", path, inbox))
+        elif lower.endswith(LABEL_SUFFIX):
+            notes.append(_note("stray_parquet", path, inbox))
+        else:
+            notes.append(_note("stray_file", path, inbox))
+    return BatchLayout(items, sources, notes)
+
+
+@dataclass(frozen=True)
+class SourceEntries:
+    """The entries of one source folder: label files, refused entries and notes."""
+
+    label_files: list[Path]
+    refused: list[tuple[Path, str]]  # (entry, code): entries that make the source invalid
+    notes: list[Note]
+
+
+def scan_source(inbox: Path, folder: Path) -> SourceEntries:
+    """Sort one source folder's entries (the folder itself is known to be inside the inbox)."""
+    files, refused, notes = [], [], []
+    for entry in sorted(os.scandir(folder), key=lambda e: e.name):
+        path, name = Path(entry.path), entry.name
+        suffix = os.path.splitext(name)[1]
+        if not decodable(name):
+            refused.append((path, "undecodable_name"))
+        elif entry.is_symlink() and not inside(path, inbox):
+            refused.append((path, "link_outside_inbox"))
+        elif entry.is_dir():
+            notes.append(_note("stray_folder", path, inbox))
+            continue
+        elif suffix == LABEL_SUFFIX:
+            files.append(path)
+            continue
+        elif suffix.lower() in DATA_SUFFIXES:
+            refused.append((path, "misnamed_label_file"))
+        else:
+            notes.append(_note("stray_file", path, inbox))
+            continue
+        notes.append(_note(refused[-1][1], path, inbox))
+    return SourceEntries(files, refused, notes)

@@ -1,0 +1,78 @@
+"""Where a run may read and write: checks made once, before any work.
+
+The output root must never equal, contain or lie inside the inbox: publishing renames
+``<out>/batch_date=D`` away, and with ``--out`` equal to ``--inbox`` that would be the
+night's input folder. Configured features must exist in at least one items table of
+the nights asked for; otherwise the configuration is wrong, not the data.
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from collections.abc import Iterable, Sequence
+from pathlib import Path
+
+from truthsieve.exceptions import ConfigError
+from truthsieve.pipeline.layout import ITEMS_FILE, inside
+
+
+def check_out_location(inbox: str | Path, out: str | Path) -> Path:
+    """Refuse an output root that overlaps the inbox or cannot be written; create it.
+
+    Both paths are compared after resolving every link. Returns the output root.
+
+    :raises ConfigError: ``out`` equals, contains or lies inside ``inbox``; ``out`` is a
+        file; it cannot be created; or it cannot be written.
+    """
+    inbox, out = Path(inbox), Path(out)
+    real_inbox, real_out = Path(os.path.realpath(inbox)), Path(os.path.realpath(out))
+    if real_out == real_inbox:
+        raise ConfigError(f"--out {out} is the inbox {inbox}; outputs must go elsewhere")
+    if real_out.is_relative_to(real_inbox):
+        raise ConfigError(f"--out {out} lies inside the inbox {inbox}; outputs must go elsewhere")
+    if real_inbox.is_relative_to(real_out):
+        raise ConfigError(f"--out {out} contains the inbox {inbox}; outputs must go elsewhere")
+    if out.exists() and not out.is_dir():
+        raise ConfigError(f"--out {out} is a file, not a folder")
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        with tempfile.TemporaryFile(dir=out):
+            pass
+    except OSError as error:
+        raise ConfigError(f"--out {out} cannot be created or written: {error.strerror or error}") from None
+    return out
+
+
+def check_features_present(inbox: str | Path, dates: Sequence[str], features: Iterable[str]) -> None:
+    """Refuse configured features that no items table of ``dates`` has.
+
+    Reads only Parquet footers (schemas), only of tables inside the inbox. Nights whose
+    items table is missing or unreadable say nothing either way (their own screening
+    records that); when no night has a readable schema, nothing is refused.
+
+    :raises ConfigError: naming ``rule_class.features`` and each column no night has.
+    """
+    import pyarrow.parquet as pq  # here: the command line starts without pyarrow
+
+    inbox, features = Path(inbox), list(features)
+    if not features:
+        return
+    seen: set[str] = set()
+    schemas = 0
+    for date in dates:
+        path = inbox / f"batch_date={date}" / ITEMS_FILE
+        if not path.is_file() or not inside(path, inbox):
+            continue
+        try:
+            seen.update(pq.read_schema(os.path.realpath(path)).names)
+        except Exception:  # noqa: BLE001 - any unreadable footer: the night's own screen reports it
+            continue
+        schemas += 1
+    missing = [f for f in features if f not in seen]
+    if schemas and missing:
+        nights = dates[0] if len(dates) == 1 else f"{dates[0]} to {dates[-1]}"
+        raise ConfigError(
+            f"rule_class.features: column{'s' if len(missing) > 1 else ''} {', '.join(missing)} "
+            f"in no items table of {nights}; check the configuration's spelling"
+        )
