@@ -16,8 +16,9 @@ here writes, moves or deletes anything.
 Numeric domain (checked here, so the core never meets an overflow): a feature value
 must be finite with ``|x| <= FEATURE_LIMIT`` (1e300), so the midpoint of any two values
 is finite; an ``item_weight`` must be 0 or in ``[ITEM_WEIGHT_MIN, ITEM_WEIGHT_MAX]``
-(1e-300 to 1e300) and the weights of the table must sum to at most ``ITEM_WEIGHT_MAX``
-and to more than 0, so every risk's numerator and denominator is a finite positive sum.
+(1e-150 to 1e150) and the weights of the table must sum to more than 0 and at most
+``ITEM_WEIGHT_MAX``, so every risk's numerator and denominator is a finite positive sum
+and so are the squares in the effective sample size ``(sum u)^2 / sum u^2``.
 """
 
 from __future__ import annotations
@@ -41,7 +42,7 @@ from truthsieve.pipeline.layout import ITEMS_FILE, Note, display, inside, read_i
 SOURCE_ID_RE = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}")
 LABEL_COLUMNS = ("item_id", "label")
 FEATURE_LIMIT = 1e300
-ITEM_WEIGHT_MIN, ITEM_WEIGHT_MAX = 1e-300, 1e300
+ITEM_WEIGHT_MIN, ITEM_WEIGHT_MAX = 1e-150, 1e150
 CONTROL_CHARACTERS = r"[\x00-\x1f\x7f]"
 # Enough rows per (file, rule) to find the pattern; the rest are counted in one record.
 MAX_ROWS_PER_RULE = 20
