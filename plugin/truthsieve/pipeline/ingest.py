@@ -24,145 +24,31 @@ and so are the squares in the effective sample size ``(sum u)^2 / sum u^2``.
 from __future__ import annotations
 
 import re
-
 from collections.abc import Iterable, Mapping
-from dataclasses import asdict, dataclass, field, replace
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
-import pyarrow.parquet as pq
 
 from truthsieve.core.rules import RULE_COLUMN_PREFIX
 from truthsieve.pipeline import layout
-from truthsieve.pipeline.layout import ITEMS_FILE, Note, display, inside, read_inside, relative, sha256
+from truthsieve.pipeline.layout import ITEMS_FILE, display, inside, relative, sha256
+from truthsieve.pipeline.records import MAX_ROWS_PER_RULE, ErrorRecord, FileCheck, InputFile, parse, quarantine_bytes, row_errors
+
+__all__ = ["ErrorRecord", "FileCheck", "InputFile", "quarantine_bytes", "validate_items", "validate_source", "source_folders", "batch_folder"]
 
 SOURCE_ID_RE = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}")
 LABEL_COLUMNS = ("item_id", "label")
 FEATURE_LIMIT = 1e300
 ITEM_WEIGHT_MIN, ITEM_WEIGHT_MAX = 1e-150, 1e150
 CONTROL_CHARACTERS = r"[\x00-\x1f\x7f]"
-# Enough rows per (file, rule) to find the pattern; the rest are counted in one record.
-MAX_ROWS_PER_RULE = 20
-
-
-@dataclass(frozen=True)
-class ErrorRecord:
-    file: str
-    row: int | None
-    column: str | None
-    rule: str
-    message: str
-
-    def as_dict(self) -> dict:
-        return asdict(self)
-
-
-@dataclass(frozen=True)
-class InputFile:
-    path: str  # relative to the inbox, POSIX separators
-    sha256: str
-    rows: int | None
-    source_id: str | None
-    valid: bool
-
-
-@dataclass
-class FileCheck:
-    """The outcome of validating one group of files (the items table, or one source).
-
-    ``contents`` keeps the bytes read of an invalid group, for its quarantine copies.
-    """
-
-    source_id: str | None
-    table: pd.DataFrame | None
-    inputs: list[InputFile] = field(default_factory=list)
-    errors: list[ErrorRecord] = field(default_factory=list)
-    notes: list[Note] = field(default_factory=list)
-    contents: dict[str, bytes] = field(default_factory=dict, repr=False)
-
-    @property
-    def valid(self) -> bool:
-        return self.table is not None and not self.errors
-
-    def summary(self) -> dict:
-        """Everything but the table and bytes, as JSON-ready data (the table travels as Parquet)."""
-        return {
-            "source_id": self.source_id,
-            "inputs": [asdict(f) for f in self.inputs],
-            "errors": [e.as_dict() for e in self.errors],
-            "notes": [n.as_dict() for n in self.notes],
-        }
-
-    @classmethod
-    def from_summary(cls, summary: dict, table: pd.DataFrame | None) -> "FileCheck":
-        return cls(
-            source_id=summary["source_id"],
-            table=table,
-            inputs=[InputFile(**f) for f in summary["inputs"]],
-            errors=[ErrorRecord(**e) for e in summary["errors"]],
-            notes=[Note(**n) for n in summary.get("notes", [])],
-        )
-
-    def _read(self, path: Path, inbox: Path) -> tuple[str, bytes | None]:
-        name = relative(path, inbox)
-        try:
-            data = read_inside(path, inbox)
-        except PermissionError:
-            self.errors.append(ErrorRecord(name, None, None, "link_outside_inbox", "a link whose target lies outside the inbox; not read"))
-            return name, None
-        except OSError as error:
-            self.errors.append(ErrorRecord(name, None, None, "unreadable_file", f"cannot read: {error.strerror}"))
-            return name, None
-        self.contents[name] = data
-        return name, data
-
-
-def quarantine_bytes(inbox: str | Path, check: FileCheck) -> dict[str, bytes]:
-    """Inbox-relative path -> bytes of every input of an invalid check.
-
-    The bytes are those read at validation; a check rebuilt from its summary (in another
-    process) is re-read only through a path inside the inbox and only if its sha256 is
-    still the one recorded, so a copy is never of anything but what was validated.
-    """
-    root = Path(inbox) if isinstance(inbox, str) else inbox
-    copies = {}
-    for f in check.inputs:
-        data = check.contents.get(f.path)
-        if data is None:
-            try:  # object storage has no links; a local inbox is read only inside itself
-                data = read_inside(root / f.path, root) if isinstance(root, Path) else (root / f.path).read_bytes()
-            except OSError:
-                continue
-            if sha256(data) != f.sha256:
-                continue
-        copies[f.path] = data
-    return copies
 
 
 def batch_folder(inbox: str | Path, batch_date: str) -> Path:
     return Path(inbox) / f"batch_date={batch_date}"
-
-
-def _parse(relative_path: str, data: bytes) -> tuple[pa.Table | None, ErrorRecord | None]:
-    try:
-        table = pq.read_table(pa.BufferReader(data))
-    except (pa.ArrowException, OSError, ValueError) as error:
-        return None, ErrorRecord(relative_path, None, None, "unreadable_parquet", f"not a readable Parquet file: {error}")
-    if table.num_rows == 0:
-        return None, ErrorRecord(relative_path, None, None, "empty_file", "the file has no rows")
-    return table, None
-
-
-def _row_errors(relative_path: str, rows: np.ndarray, column: str, rule: str, message: str) -> list[ErrorRecord]:
-    records = [ErrorRecord(relative_path, int(r) + 1, column, rule, message) for r in rows[:MAX_ROWS_PER_RULE]]
-    if len(rows) > MAX_ROWS_PER_RULE:
-        records.append(
-            ErrorRecord(relative_path, None, column, rule, f"{len(rows) - MAX_ROWS_PER_RULE} more rows break this rule")
-        )
-    return records
 
 
 def _is_string(kind: pa.DataType) -> bool:
@@ -176,7 +62,7 @@ def _is_number(kind: pa.DataType) -> bool:
 def _id_errors(relative_path: str, column: pa.ChunkedArray) -> list[ErrorRecord]:
     """Null ids and ids holding a NUL or other control character (``X`` and ``X\\x00`` look alike)."""
     control = pc.fill_null(pc.match_substring_regex(column, CONTROL_CHARACTERS), False)
-    return _row_errors(relative_path, np.flatnonzero(column.is_null().to_numpy(zero_copy_only=False)), "item_id", "null_item_id", "item_id is null") + _row_errors(
+    return row_errors(relative_path, np.flatnonzero(column.is_null().to_numpy(zero_copy_only=False)), "item_id", "null_item_id", "item_id is null") + row_errors(
         relative_path, np.flatnonzero(control.to_numpy(zero_copy_only=False)), "item_id", "control_character_in_id",
         "item_id holds a NUL or other control character",
     )
@@ -210,9 +96,9 @@ def _schema_errors(relative_path: str, schema: pa.Schema, features: Iterable[str
 
 def _weight_errors(relative_path: str, weights: np.ndarray) -> list[ErrorRecord]:
     finite = np.isfinite(weights)
-    errors = _row_errors(relative_path, np.flatnonzero(~finite), "item_weight", "non_finite_weight", "item_weight is NaN, infinite or null")
-    errors += _row_errors(relative_path, np.flatnonzero(weights < 0), "item_weight", "negative_item_weight", "item_weight is negative")
-    errors += _row_errors(
+    errors = row_errors(relative_path, np.flatnonzero(~finite), "item_weight", "non_finite_weight", "item_weight is NaN, infinite or null")
+    errors += row_errors(relative_path, np.flatnonzero(weights < 0), "item_weight", "negative_item_weight", "item_weight is negative")
+    errors += row_errors(
         relative_path, np.flatnonzero(finite & ((weights > ITEM_WEIGHT_MAX) | ((weights > 0) & (weights < ITEM_WEIGHT_MIN)))),
         "item_weight", "item_weight_out_of_range", f"item_weight must be 0 or between {ITEM_WEIGHT_MIN:g} and {ITEM_WEIGHT_MAX:g}",
     )
@@ -246,7 +132,7 @@ def validate_items(
     name, data = check._read(path, inbox)
     if data is None:
         return check
-    table, error = _parse(name, data)
+    table, error = parse(name, data)
     check.inputs.append(InputFile(name, sha256(data), table.num_rows if table else None, None, False))
     if error:
         check.errors.append(error)
@@ -259,7 +145,7 @@ def validate_items(
     errors += _id_errors(name, table.column("item_id"))
     frame = table.to_pandas()
     ids = frame["item_id"]
-    errors += _row_errors(
+    errors += row_errors(
         name, np.flatnonzero(ids.duplicated(keep="first").to_numpy() & ids.notna().to_numpy()),
         "item_id", "duplicate_item_id", "item_id appears on an earlier row",
     )
@@ -267,8 +153,8 @@ def validate_items(
     for feature in features:
         values = frame[feature].to_numpy(dtype=np.float64, na_value=np.nan)
         finite = np.isfinite(values)
-        errors += _row_errors(name, np.flatnonzero(~finite), feature, "non_finite_feature", "feature is NaN, infinite or null")
-        errors += _row_errors(
+        errors += row_errors(name, np.flatnonzero(~finite), feature, "non_finite_feature", "feature is NaN, infinite or null")
+        errors += row_errors(
             name, np.flatnonzero(finite & (np.abs(values) > FEATURE_LIMIT)), feature, "feature_out_of_range",
             f"feature magnitude is above {FEATURE_LIMIT:g}",
         )
@@ -282,7 +168,7 @@ def validate_items(
         errors += _weight_errors(name, frame["item_weight"].to_numpy(dtype=np.float64, na_value=np.nan))
     for column in frame.columns:
         if column.startswith(RULE_COLUMN_PREFIX):
-            errors += _row_errors(name, np.flatnonzero(frame[column].isna().to_numpy()), column, "null_rule_value", "rule value is null")
+            errors += row_errors(name, np.flatnonzero(frame[column].isna().to_numpy()), column, "null_rule_value", "rule value is null")
     if not errors:
         check.table = frame
         check.inputs[0] = replace(check.inputs[0], valid=True)
@@ -341,7 +227,7 @@ def validate_source(
 
     frames, places = [], []
     for index, (name, data) in enumerate(contents):
-        table, error = _parse(name, data)
+        table, error = parse(name, data)
         if table is not None:
             check.inputs[index] = replace(check.inputs[index], rows=table.num_rows)
         if error:
@@ -415,15 +301,15 @@ def _validate_labels(relative_path: str, table: pa.Table, item_ids: pd.Index | N
     # Plain object arrays: pandas' Arrow-backed strings hash element by element in Python.
     ids = pd.Series(table.column("item_id").to_numpy(zero_copy_only=False), dtype=object)
     raw = pd.Series(table.column("label").to_numpy(zero_copy_only=False))
-    errors += _row_errors(relative_path, np.flatnonzero(raw.isna().to_numpy()), "label", "null_label", "label is null")
+    errors += row_errors(relative_path, np.flatnonzero(raw.isna().to_numpy()), "label", "null_label", "label is null")
     numeric = raw.astype("float64")
-    errors += _row_errors(
+    errors += row_errors(
         relative_path, np.flatnonzero(raw.notna().to_numpy() & ~numeric.isin([0.0, 1.0]).to_numpy()),
         "label", "label_out_of_range", "label must be 0 or 1",
     )
     if item_ids is not None:
         unknown = ids.notna().to_numpy() & (item_ids.get_indexer(ids.fillna("").to_numpy()) < 0)
-        errors += _row_errors(relative_path, np.flatnonzero(unknown), "item_id", "unknown_item", "item_id is not in the items table")
+        errors += row_errors(relative_path, np.flatnonzero(unknown), "item_id", "unknown_item", "item_id is not in the items table")
     if errors:
         return None, errors
     return pd.DataFrame({"item_id": ids.to_numpy(), "label": numeric.to_numpy().astype(np.int8)}), []

@@ -1,0 +1,135 @@
+"""What validation found: error records, input files, and one check's outcome.
+
+Shared by :mod:`truthsieve.pipeline.ingest` and the Airflow tasks, which send a check's
+:meth:`FileCheck.summary` between processes and rebuild it with :meth:`FileCheck.from_summary`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from truthsieve.pipeline.layout import Note, read_inside, relative, sha256
+
+# Enough rows per (file, rule) to find the pattern; the rest are counted in one record.
+MAX_ROWS_PER_RULE = 20
+
+
+@dataclass(frozen=True)
+class ErrorRecord:
+    file: str
+    row: int | None
+    column: str | None
+    rule: str
+    message: str
+
+    def as_dict(self) -> dict:
+        return asdict(self)
+
+
+@dataclass(frozen=True)
+class InputFile:
+    path: str  # relative to the inbox, POSIX separators
+    sha256: str
+    rows: int | None
+    source_id: str | None
+    valid: bool
+
+
+@dataclass
+class FileCheck:
+    """The outcome of validating one group of files (the items table, or one source).
+
+    ``contents`` keeps the bytes read of an invalid group, for its quarantine copies.
+    """
+
+    source_id: str | None
+    table: pd.DataFrame | None
+    inputs: list[InputFile] = field(default_factory=list)
+    errors: list[ErrorRecord] = field(default_factory=list)
+    notes: list[Note] = field(default_factory=list)
+    contents: dict[str, bytes] = field(default_factory=dict, repr=False)
+
+    @property
+    def valid(self) -> bool:
+        return self.table is not None and not self.errors
+
+    def summary(self) -> dict:
+        """Everything but the table and bytes, as JSON-ready data (the table travels as Parquet)."""
+        return {
+            "source_id": self.source_id,
+            "inputs": [asdict(f) for f in self.inputs],
+            "errors": [e.as_dict() for e in self.errors],
+            "notes": [n.as_dict() for n in self.notes],
+        }
+
+    @classmethod
+    def from_summary(cls, summary: dict, table: pd.DataFrame | None) -> "FileCheck":
+        return cls(
+            source_id=summary["source_id"],
+            table=table,
+            inputs=[InputFile(**f) for f in summary["inputs"]],
+            errors=[ErrorRecord(**e) for e in summary["errors"]],
+            notes=[Note(**n) for n in summary.get("notes", [])],
+        )
+
+    def _read(self, path: Path, inbox: Path) -> tuple[str, bytes | None]:
+        name = relative(path, inbox)
+        try:
+            data = read_inside(path, inbox)
+        except PermissionError:
+            self.errors.append(ErrorRecord(name, None, None, "link_outside_inbox", "a link whose target lies outside the inbox; not read"))
+            return name, None
+        except OSError as error:
+            self.errors.append(ErrorRecord(name, None, None, "unreadable_file", f"cannot read: {error.strerror}"))
+            return name, None
+        self.contents[name] = data
+        return name, data
+
+
+def quarantine_bytes(inbox: str | Path, check: FileCheck) -> dict[str, bytes]:
+    """Inbox-relative path -> bytes of every input of an invalid check.
+
+    The bytes are those read at validation; a check rebuilt from its summary (in another
+    process) is re-read only through a path inside the inbox and only if its sha256 is
+    still the one recorded, so a copy is never of anything but what was validated.
+    """
+    root = Path(inbox) if isinstance(inbox, str) else inbox
+    copies = {}
+    for f in check.inputs:
+        data = check.contents.get(f.path)
+        if data is None:
+            try:  # object storage has no links; a local inbox is read only inside itself
+                data = read_inside(root / f.path, root) if isinstance(root, Path) else (root / f.path).read_bytes()
+            except OSError:
+                continue
+            if sha256(data) != f.sha256:
+                continue
+        copies[f.path] = data
+    return copies
+
+
+def parse(relative_path: str, data: bytes) -> tuple[pa.Table | None, ErrorRecord | None]:
+    try:
+        table = pq.read_table(pa.BufferReader(data))
+    except (pa.ArrowException, OSError, ValueError) as error:
+        return None, ErrorRecord(relative_path, None, None, "unreadable_parquet", f"not a readable Parquet file: {error}")
+    if table.num_rows == 0:
+        return None, ErrorRecord(relative_path, None, None, "empty_file", "the file has no rows")
+    return table, None
+
+
+def row_errors(relative_path: str, rows: np.ndarray, column: str, rule: str, message: str) -> list[ErrorRecord]:
+    records = [ErrorRecord(relative_path, int(r) + 1, column, rule, message) for r in rows[:MAX_ROWS_PER_RULE]]
+    if len(rows) > MAX_ROWS_PER_RULE:
+        records.append(
+            ErrorRecord(relative_path, None, column, rule, f"{len(rows) - MAX_ROWS_PER_RULE} more rows break this rule")
+        )
+    return records
+
+
