@@ -219,6 +219,8 @@ def test_quarantine_copies_from_a_summary_are_the_validated_bytes(tmp_path):
     check = ingest.validate_source(inbox, folder / "source_id=south", {"south": 1}, None)
     rebuilt = ingest.FileCheck.from_summary(json.loads(json.dumps(check.summary())), None)
     assert ingest.quarantine_bytes(inbox, rebuilt) == {f"batch_date={DATE}/source_id=south/labels.parquet": b"not parquet"}
+    bad.write_bytes(b"other bytes")  # changed after validation: not what was validated, not copied
+    assert ingest.quarantine_bytes(inbox, rebuilt) == {}
     bad.unlink()
     os.symlink("/etc/passwd", bad)  # swapped for a link after validation: not copied
     assert ingest.quarantine_bytes(inbox, rebuilt) == {}
