@@ -95,7 +95,7 @@ def test_bad_source_file_is_quarantined_with_a_precise_error(tmp_path, rule):
         ("duplicate_item_id", "item_id", lambda t: t.set_column(0, "item_id", pa.array(["lot-00001"] + t.column("item_id").to_pylist()[1:]))),
         ("non_finite_feature", "moisture_pct", lambda t: t.set_column(1, "moisture_pct", pa.array([float("nan")] + t.column("moisture_pct").to_pylist()[1:]))),
         ("negative_item_weight", "item_weight", lambda t: t.append_column("item_weight", pa.array([1.0] * (t.num_rows - 1) + [-1.0]))),
-        ("configured_column_missing", "falling_number_s", lambda t: t.drop_columns(["falling_number_s"])),
+        ("wrong_type", "falling_number_s", lambda t: t.set_column(2, "falling_number_s", pa.array(["x"] * t.num_rows))),
     ],
 )
 def test_bad_items_table_stops_the_batch_but_still_writes_a_review_decision(tmp_path, rule, column, mutate):
@@ -114,7 +114,7 @@ def test_bad_items_table_stops_the_batch_but_still_writes_a_review_decision(tmp_
 
 def test_missing_batch_and_bad_config_exit_non_zero_without_output(tmp_path):
     config = write_config(tmp_path / "c.yaml")
-    missing = cli("screen", "--inbox", str(tmp_path), "--date", DATE, "--config", str(config), "--out", str(tmp_path / "out"))
+    missing = cli("screen", "--inbox", str(tmp_path / "inbox"), "--date", DATE, "--config", str(config), "--out", str(tmp_path / "out"))
     assert missing.returncode == 2 and "no such batch folder" in missing.stderr
     bad = tmp_path / "bad.yaml"
     bad.write_text("rule_class: {kind: threshold}\nmechanism: coin_toss\nsources: []\n")
