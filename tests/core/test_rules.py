@@ -84,3 +84,18 @@ def test_impossible_rule_classes_raise(kind, columns, features, message):
     items = pd.DataFrame({"item_id": ["a", "b"], **columns})
     with pytest.raises(RuleClassError, match=message):
         build_rule_class(kind, items, np.array(["a", "b"]), features)
+
+
+@pytest.mark.parametrize("low", [1.0 + 2.0**-52, 1.5e308, -1.7e308])
+def test_every_cut_separates_its_two_neighbours_even_between_adjacent_floats(low):
+    # Adjacent floats: the naive midpoint (low + high) / 2 rounds to even, which for these
+    # lows is high itself (or overflows to inf near the top of the range), so high would
+    # fall on the wrong side of its own cut. Common practice for floating-point midpoints.
+    from truthsieve.core.rules import ThresholdRules
+
+    high = float(np.nextafter(low, np.inf))
+    rules = ThresholdRules(pd.DataFrame({"x": [low, high]}))
+    cut = float(rules.features[0].cuts[0])
+    assert np.isfinite(cut) and low <= cut < high
+    above = rules.predict(3)  # the first feature's only cut, above=1
+    assert above.tolist() == [False, True]

@@ -109,7 +109,11 @@ class ThresholdRules(RuleClass):
             split_after = np.flatnonzero(ordered[1:] > ordered[:-1]) + 1
             if len(split_after) == 0:
                 continue
-            cuts = (ordered[split_after - 1] + ordered[split_after]) / 2.0
+            low, high = ordered[split_after - 1], ordered[split_after]
+            # low + (high - low) / 2 cannot overflow; between adjacent floats it may round
+            # up to high, and then low itself is the cut that separates the two.
+            cuts = low + (high - low) / 2.0
+            cuts = np.where(cuts < high, cuts, low)
             self.features.append(_SortedFeature(str(name), order, split_after, cuts, values))
         if not self.features:
             raise RuleClassError(
