@@ -146,7 +146,28 @@ def feature_plot(values: np.ndarray, accept_share: np.ndarray, feature: str, cut
     return _axis_box(width, height, "".join(parts), f"{feature} with the consensus and drawn cuts")
 
 
-def render_report(decision: Mapping, analysis=None) -> str:
+def in_force_section(decision: Mapping, before: Mapping | None) -> str:
+    """The rule in force before and after the night and, on review, what the reviewer decides."""
+    date, drawn = decision["batch_date"], (decision["draw"] or {}).get("rule")
+    previous = (before or {}).get("rule")
+    was = f"{rule_text(previous)} (since {(before or {}).get('since')})" if previous else "none (no night aggregated or approved yet)"
+    after = rule_text(drawn) if decision["route"] == "aggregate" else f"unchanged until a verdict: {was}"
+    parts = [
+        "<h2 id='in-force'>Rule in force</h2>",
+        _table(["", "rule"], [["before this night", _e(was)], ["after this night", _e(after)]], text_columns=(0, 1)),
+    ]
+    if decision["route"] == "review":
+        approve = f"approve: the drawn rule ({rule_text(drawn)}) goes in force" if drawn else "approve: not possible, no rule was drawn"
+        command = f"truthsieve verdict --out OUT --date {date} (--approve | --reject) --by NAME --note TEXT"
+        parts.append(
+            f"<p id='decide'>The reviewer decides: {_e(approve)}; reject: the rule in force stays. "
+            f"Record it with <code>{_e(command)}</code> (OUT is the folder holding index.html). "
+            "The verdict goes to <code>ledger.jsonl</code>; the index shows it.</p>"
+        )
+    return "".join(parts)
+
+
+def render_report(decision: Mapping, analysis=None, in_force_before: Mapping | None = None) -> str:
     """The batch's ``report.html``."""
     date = decision["batch_date"]
     route = decision["route"]
@@ -166,8 +187,7 @@ def render_report(decision: Mapping, analysis=None) -> str:
         if reasons
         else "<p>No reasons: every check of the routing policy passed.</p>"
     )
-    if route == "review":
-        parts.append("<p>Until a reviewer acts, the previously published rule stays in force.</p>")
+    parts.append(in_force_section(decision, in_force_before))
 
     consensus, mechanism, drawn = decision["consensus"], decision["mechanism"], decision["draw"]
     parts.append("<h2 id='rules'>Consensus rule and drawn rule</h2>")
@@ -265,8 +285,21 @@ def render_report(decision: Mapping, analysis=None) -> str:
     return _page(f"truthsieve batch {date}", "".join(parts))
 
 
-def render_index(decisions: Sequence[Mapping]) -> str:
-    """``index.html``: route, ratio and flags per source for every night."""
+def _verdict_cell(night) -> str:
+    if night is None:
+        return "&ndash;"
+    by = night.decided_by
+    who = f" by {by['by']}" if by else ""
+    return f"{_e(night.status.replace('_', ' '))}{_e(who)}"
+
+
+def render_index(decisions: Sequence[Mapping], ledger_entries: Sequence[Mapping] = ()) -> str:
+    """``index.html``: the rule in force now; per night route, verdict and who, rule in force
+    after the night, ratio and flags per source."""
+    from truthsieve.pipeline.ledger import derive, nights
+
+    ledger_nights = nights(ledger_entries)
+    now = derive(ledger_entries)
     decisions = sorted(decisions, key=lambda d: d["batch_date"])
     sources = sorted({s["source_id"] for d in decisions for s in d["sources"]} | {q["source_id"] for d in decisions for q in d["quarantined"] if q["source_id"]})
     rows = []
@@ -283,11 +316,19 @@ def render_index(decisions: Sequence[Mapping]) -> str:
                 cells.append("".join(f"<span class='flag'>{_e(f)}</span>" for f in by_source[source]) or "&middot;")
         ratio = d["mechanism"]["ratio"] if d["mechanism"] else None
         link = f"<a href='batch_date={_e(d['batch_date'])}/report.html'>{_e(d['batch_date'])}</a>"
-        rows.append([link, f"<span class='route {_e(d['route'])}'>{_e(d['route'])}</span>", _f(ratio, 3), *cells])
+        then = derive(ledger_entries, d["batch_date"])
+        rows.append(
+            [
+                link, f"<span class='route {_e(d['route'])}'>{_e(d['route'])}</span>",
+                _verdict_cell(ledger_nights.get(d["batch_date"])), _e(rule_text(then["rule"])), _f(ratio, 3), *cells,
+            ]
+        )
+    since = f" since {_e(now['since'])} (ledger line {_e(now['seq'])})" if now["rule"] else ""
     body = (
         "<h1>Label batches, night by night</h1>"
+        f"<p id='in-force'>Rule in force now: <strong>{_e(rule_text(now['rule']))}</strong>{since}.</p>"
         f"<div class='caution'><strong>Caution.</strong> {_e(CAUTION)}</div>"
-        + _table(["night", "route", "ratio", *sources], rows, text_columns=tuple(range(3 + len(sources))))
+        + _table(["night", "route", "verdict", "rule in force after", "ratio", *sources], rows, text_columns=tuple(range(5 + len(sources))))
     )
     return _page("truthsieve history", body)
 
