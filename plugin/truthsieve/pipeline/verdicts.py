@@ -174,6 +174,7 @@ def record_verdict(
         decision_bytes = _published_decision(out, batch_date)
         state, entries = _commit(out, events, lock_timeout)
         _sync_review_file(out, batch_date, entries)
+    _refresh_index(out)
     return state
 
 
@@ -207,7 +208,14 @@ def record_revocation(out: str | Path, batch_date: str, by: str, note: str, at: 
         decision_bytes = _published_decision(out, batch_date)
         state, entries = _commit(out, events, lock_timeout)
         _sync_review_file(out, batch_date, entries)
+    _refresh_index(out)
     return state
+
+
+def _refresh_index(out: str | Path) -> None:
+    from truthsieve.pipeline.cli import write_index  # the index lives with the command line
+
+    write_index(Path(out))
 
 
 def in_force(out: str | Path, as_of: str | None = None) -> dict:
