@@ -171,7 +171,12 @@ def run(argv: Sequence[str] | None = None) -> int:
         print(f"generating the demo inbox in {inbox}")
         demo.generate_inbox(inbox)
     dates = demo.night_dates()
-    return backfill(inbox, dates, None, args.out, 600.0, config=demo.demo_config())
+    code = backfill(inbox, dates, None, args.out, 600.0, config=demo.demo_config())
+    if code == EXIT_OK:
+        from truthsieve.pipeline.ledger_cli import finish_demo
+
+        finish_demo(args.out)
+    return code
 
 
 def main(argv: Sequence[str] | None = None) -> int:

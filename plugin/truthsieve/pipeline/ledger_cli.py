@@ -70,6 +70,16 @@ def _describe(state: dict) -> str:
     return f"rule in force: {rule_text(state['rule'])}\n  since night {state['since']} ({how}; ledger line {state['seq']})\n  decision sha256 {state['decision_sha256']}"
 
 
+def finish_demo(out: Path) -> None:
+    """The demo's reviewer records her verdicts; then the rule in force is printed."""
+    from truthsieve.pipeline import demo, verdicts
+
+    print(f"\nverdicts of {demo.REVIEWER}:")
+    for line in demo.record_demo_verdicts(out, _now()):
+        print(f"  {line}")
+    print(_describe(verdicts.in_force(out)))
+
+
 def run_ledger_command(args) -> int:
     from truthsieve.pipeline import ledger, verdicts
 
