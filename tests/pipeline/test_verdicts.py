@@ -155,3 +155,17 @@ def test_rescreen_keeps_verdict_unless_the_night_changed_and_revoke_restores(tmp
     revoked = [json.loads(line) for line in (out / "ledger.jsonl").read_text().splitlines() if '"revoked"' in line]
     assert len(revoked) == 1 and "override" in revoked[0]["override"] and revoked[0]["by"] == "Wren"
     one_line_error(cli("revoke", "--out", str(out), "--date", AGGREGATED_NIGHT, "--by", "Wren", "--note", "again"), "nothing to revoke")
+
+
+def test_demo_records_an_approval_and_a_rejection_and_ends_with_the_rule_in_force(tmp_path):
+    out = tmp_path / "out"
+    result = cli("demo", "--out", str(out))
+    assert result.returncode == 0, result.stderr
+    assert result.stdout.strip().splitlines()[-3].startswith("rule in force:")
+    index = (out / "index.html").read_text()
+    assert "approved by Greta Voss (quality manager)" in index and "rejected by Greta Voss (quality manager)" in index
+    state = in_force(out)
+    entries = [json.loads(line) for line in (out / "ledger.jsonl").read_text().splitlines()]
+    verdicts = {e["decision"]: e for e in entries if e["event"] == "verdict"}
+    assert set(verdicts) == {"approve", "reject"}
+    assert state["rule"] == verdicts["approve"]["puts_in_force"] or state["since"] > verdicts["approve"]["date"]
