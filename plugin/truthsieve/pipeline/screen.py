@@ -35,7 +35,7 @@ from truthsieve.pipeline.outputs import (
 )
 from truthsieve.pipeline.report import render_report
 from truthsieve.pipeline.routing import AGGREGATE, REVIEW, route_batch
-from truthsieve.pipeline.verdicts import in_force_before, record_publication
+from truthsieve.pipeline.verdicts import REVIEW_NOTE, in_force_before, record_publication
 
 
 @dataclass
@@ -252,7 +252,8 @@ def decide(
             "batch_date": intake.batch_date,
             "status": "awaiting_review",
             "blocking_reasons": [r for r in decision["reasons"] if r["blocking"]],
-            "note": "The previously published rule stays in force until a reviewer approves or rejects this batch.",
+            "note": REVIEW_NOTE,
+            "verdict": None,
         }
         files["review.json"] = dumps_decision(review)
     alerts = compose_alerts(decision, config)

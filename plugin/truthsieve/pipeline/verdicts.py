@@ -32,6 +32,7 @@ from truthsieve.pipeline.ledger import (
 )
 from truthsieve.pipeline.outputs import batch_output, date_lock, dumps_decision, write_atomic
 
+REVIEW_NOTE = "The status mirrors <out>/ledger.jsonl, which holds every verdict; `truthsieve in-force` shows the rule in force."
 OVERRIDE_NOTE = "human override of the mechanism: the night's published rule is withdrawn and the previous rule restored"
 
 
@@ -94,7 +95,7 @@ def _sync_review_file(out: str | Path, batch_date: str, entries: Sequence[Mappin
     by = night.decided_by
     review["status"] = night.status
     review["verdict"] = None if by is None else {k: by.get(k) for k in ("event", "decision", "by", "note", "at", "seq")}
-    review["note"] = "The status mirrors <out>/ledger.jsonl, which holds every verdict; `truthsieve in-force` shows the rule in force."
+    review["note"] = REVIEW_NOTE
     data = dumps_decision(review)
     if path.read_bytes() != data:
         write_atomic(path, data)
