@@ -11,6 +11,7 @@ from pathlib import Path
 import pytest
 
 from inboxes import cli, write_batch, write_config
+from truthsieve.exceptions import VerdictError
 from truthsieve.pipeline import ledger
 from truthsieve.pipeline.outputs import batch_output
 from truthsieve.pipeline.verdicts import record_publication, record_verdict
@@ -126,6 +127,10 @@ def test_in_force_follows_aggregation_approval_rejection_and_revocation(tmp_path
     assert publish_fake(out, "2026-11-03", "review", 15.0)["rule"] == rule(14.0)  # review: the previous rule stays
     state = record_verdict(out, "2026-11-03", True, "Wren", "ok", AT)
     assert state["rule"] == rule(15.0) and state["since"] == "2026-11-03" and state["event"]["at"] == AT
+    with pytest.raises(VerdictError, match="not awaiting review"):
+        record_verdict(out, "2026-11-03", False, "Someone", "", AT)  # decided nights take no second verdict
+    with pytest.raises(VerdictError, match="not awaiting review"):
+        record_verdict(out, "2026-11-02", True, "Someone", "", AT)  # aggregated nights take none
     publish_fake(out, "2026-11-04", "review", 16.0)
     assert record_verdict(out, "2026-11-04", False, "Wren", "no", AT)["rule"] == rule(15.0)  # rejection keeps it
     entries = ledger.read_ledger(out)
