@@ -169,3 +169,15 @@ def test_demo_records_an_approval_and_a_rejection_and_ends_with_the_rule_in_forc
     verdicts = {e["decision"]: e for e in entries if e["event"] == "verdict"}
     assert set(verdicts) == {"approve", "reject"}
     assert state["rule"] == verdicts["approve"]["puts_in_force"] or state["since"] > verdicts["approve"]["date"]
+
+
+def test_review_report_states_the_rule_in_force_and_the_command(nights):
+    _, out, decisions, _ = nights
+    report = (out / f"batch_date={APPROVED_NIGHT}" / "report.html").read_text()
+    first = decisions[AGGREGATED_NIGHT]["draw"]["rule"]
+    # rule_text of a threshold rule with above = 0: "<feature> > <cut>: reject; otherwise accept"
+    assert first["above"] == 0
+    assert f"{first['feature']} &gt; {first['cut']:g}: reject; otherwise accept (since {AGGREGATED_NIGHT})" in report
+    assert f"truthsieve verdict --out OUT --date {APPROVED_NIGHT} (--approve | --reject) --by NAME" in report
+    aggregated = (out / f"batch_date={AGGREGATED_NIGHT}" / "report.html").read_text()
+    assert "none (no night aggregated or approved yet)" in aggregated and "truthsieve verdict" not in aggregated

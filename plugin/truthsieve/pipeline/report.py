@@ -150,7 +150,10 @@ def in_force_section(decision: Mapping, before: Mapping | None) -> str:
     """The rule in force before and after the night and, on review, what the reviewer decides."""
     date, drawn = decision["batch_date"], (decision["draw"] or {}).get("rule")
     previous = (before or {}).get("rule")
-    was = f"{rule_text(previous)} (since {(before or {}).get('since')})" if previous else "none (no night aggregated or approved yet)"
+    if before is None:
+        was = "not known to this report: see in_force.json"
+    else:
+        was = f"{rule_text(previous)} (since {before['since']})" if previous else "none (no night aggregated or approved yet)"
     after = rule_text(drawn) if decision["route"] == "aggregate" else f"unchanged until a verdict: {was}"
     parts = [
         "<h2 id='in-force'>Rule in force</h2>",
