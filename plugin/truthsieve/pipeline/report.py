@@ -146,32 +146,10 @@ def feature_plot(values: np.ndarray, accept_share: np.ndarray, feature: str, cut
     return _axis_box(width, height, "".join(parts), f"{feature} with the consensus and drawn cuts")
 
 
-def in_force_section(decision: Mapping, before: Mapping | None) -> str:
-    """The rule in force before and after the night and, on review, what the reviewer decides."""
-    date, drawn = decision["batch_date"], (decision["draw"] or {}).get("rule")
-    previous = (before or {}).get("rule")
-    if before is None:
-        was = "not known to this report: see in_force.json"
-    else:
-        was = f"{rule_text(previous)} (since {before['since']})" if previous else "none (no night aggregated or approved yet)"
-    after = rule_text(drawn) if decision["route"] == "aggregate" else f"unchanged until a verdict: {was}"
-    parts = [
-        "<h2 id='in-force'>Rule in force</h2>",
-        _table(["", "rule"], [["before this night", _e(was)], ["after this night", _e(after)]], text_columns=(0, 1)),
-    ]
-    if decision["route"] == "review":
-        approve = f"approve: the drawn rule ({rule_text(drawn)}) goes in force" if drawn else "approve: not possible, no rule was drawn"
-        command = f"truthsieve verdict --out OUT --date {date} (--approve | --reject) --by NAME --note TEXT"
-        parts.append(
-            f"<p id='decide'>The reviewer decides: {_e(approve)}; reject: the rule in force stays. "
-            f"Record it with <code>{_e(command)}</code> (OUT is the folder holding index.html). "
-            "The verdict goes to <code>ledger.jsonl</code>; the index shows it.</p>"
-        )
-    return "".join(parts)
-
-
 def render_report(decision: Mapping, analysis=None, in_force_before: Mapping | None = None) -> str:
     """The batch's ``report.html``."""
+    from truthsieve.pipeline.report_ledger import in_force_section
+
     date = decision["batch_date"]
     route = decision["route"]
     parts = [
@@ -288,18 +266,11 @@ def render_report(decision: Mapping, analysis=None, in_force_before: Mapping | N
     return _page(f"truthsieve batch {date}", "".join(parts))
 
 
-def _verdict_cell(night) -> str:
-    if night is None:
-        return "&ndash;"
-    by = night.decided_by
-    who = f" by {by['by']}" if by else ""
-    return f"{_e(night.status.replace('_', ' '))}{_e(who)}"
-
-
 def render_index(decisions: Sequence[Mapping], ledger_entries: Sequence[Mapping] = ()) -> str:
     """``index.html``: the rule in force now; per night route, verdict and who, rule in force
     after the night, ratio and flags per source."""
     from truthsieve.pipeline.ledger import derive, nights
+    from truthsieve.pipeline.report_ledger import verdict_cell
 
     ledger_nights = nights(ledger_entries)
     now = derive(ledger_entries)
@@ -323,7 +294,7 @@ def render_index(decisions: Sequence[Mapping], ledger_entries: Sequence[Mapping]
         rows.append(
             [
                 link, f"<span class='route {_e(d['route'])}'>{_e(d['route'])}</span>",
-                _verdict_cell(ledger_nights.get(d["batch_date"])), _e(rule_text(then["rule"])), _f(ratio, 3), *cells,
+                verdict_cell(ledger_nights.get(d["batch_date"])), _e(rule_text(then["rule"])), _f(ratio, 3), *cells,
             ]
         )
     since = f" since {_e(now['since'])} (ledger line {_e(now['seq'])})" if now["rule"] else ""
