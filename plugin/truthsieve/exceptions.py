@@ -49,3 +49,11 @@ class ConfigError(InputError):
 
 class BatchLockedError(TruthsieveError):
     """Another run holds the lock of this batch date."""
+
+
+class LedgerBrokenError(InputError):
+    """The out folder's ledger fails its hash chain; the message names the first broken line."""
+
+
+class VerdictError(InputError):
+    """A verdict or revocation names a night that does not exist or is not in the state it needs."""

@@ -17,6 +17,7 @@ from pathlib import Path
 from truthsieve import __version__
 from truthsieve.exceptions import BatchLockedError, InputError
 from truthsieve.pipeline.locations import check_features_present, check_out_location
+from truthsieve.pipeline.ledger_cli import LEDGER_COMMANDS, add_ledger_commands, run_ledger_command
 
 EXIT_OK, EXIT_FAILURE, EXIT_INPUT, EXIT_LOCKED = 0, 1, 2, 3
 
@@ -56,6 +57,7 @@ def build_parser() -> argparse.ArgumentParser:
     demo = commands.add_parser("demo", help="generate the grain cooperative demo (if missing) and backfill its 14 nights")
     demo.add_argument("--out", type=Path, default=Path("out/demo"), help="output root (default out/demo)")
     demo.add_argument("--inbox", type=Path, default=None, help="demo inbox (default: <out>-inbox)")
+    add_ledger_commands(commands)
     return parser
 
 
@@ -104,7 +106,12 @@ def write_index(out) -> Path:
     out = as_location(out)
     decisions = [json.loads(p.read_text()) for p in sorted(out.glob("batch_date=*/decision.json"), key=str)]
     path = out / "index.html"
-    page = render_index(decisions).encode()
+    entries = []
+    if isinstance(out, Path):
+        from truthsieve.pipeline.ledger import read_ledger
+
+        entries = read_ledger(out)
+    page = render_index(decisions, entries).encode()
     if isinstance(path, Path):
         write_atomic(path, page)
     else:
@@ -166,6 +173,8 @@ def run(argv: Sequence[str] | None = None) -> int:
             return EXIT_INPUT
         dates = [(first + dt.timedelta(days=k)).isoformat() for k in range((last - first).days + 1)]
         return backfill(args.inbox, dates, args.config, args.out, args.lock_timeout)
+    if args.command in LEDGER_COMMANDS:
+        return run_ledger_command(args)
     from truthsieve.pipeline import demo
 
     inbox = args.inbox or args.out.with_name(args.out.name + "-inbox")
@@ -174,7 +183,12 @@ def run(argv: Sequence[str] | None = None) -> int:
         print(f"generating the demo inbox in {inbox}")
         demo.generate_inbox(inbox)
     dates = demo.night_dates()
-    return backfill(inbox, dates, None, args.out, 600.0, config=demo.demo_config())
+    code = backfill(inbox, dates, None, args.out, 600.0, config=demo.demo_config())
+    if code == EXIT_OK:
+        from truthsieve.pipeline.ledger_cli import finish_demo
+
+        finish_demo(args.out)
+    return code
 
 
 def main(argv: Sequence[str] | None = None) -> int:

@@ -117,3 +117,39 @@ def generate_inbox(inbox: str | Path, seed: int = SEED) -> list[str]:
                     target / "grades.parquet",
                 )
     return dates
+
+
+REVIEWER = "Greta Voss (quality manager)"  # invented, like everything in the demo
+
+
+def record_demo_verdicts(out: str | Path, at: str) -> list[str]:
+    """The quality manager's two verdicts: she approves the first night awaiting review
+    whose drawn rule is not the strategic member's, and rejects the last night awaiting
+    review (the strategic member's drawn rule if there is one). Returns what was done;
+    nights she already decided are left alone, so reruns add nothing."""
+    import json
+
+    from truthsieve.pipeline.ledger import AWAITING, nights, read_ledger
+    from truthsieve.pipeline.verdicts import record_verdict
+
+    state = nights(read_ledger(out))
+    if any(n.decided_by and n.decided_by.get("by") == REVIEWER for n in state.values()):
+        return [f"{n.date}: {n.status} by {REVIEWER}" for n in state.values() if n.decided_by and n.decided_by.get("by") == REVIEWER]
+    awaiting = [n for n in state.values() if n.status == AWAITING and n.rule is not None]
+    if len(awaiting) < 2:
+        return [f"only {len(awaiting)} night(s) await review: no demo verdicts recorded"]
+
+    def decision(night) -> dict:
+        return json.loads((Path(out) / f"batch_date={night.date}" / "decision.json").read_text())
+
+    def drawn_source(night) -> str | None:
+        return decision(night)["draw"]["source_id"]
+
+    strategic = [n for n in awaiting if drawn_source(n) == STRATEGIC]
+    rejected = strategic[-1] if strategic else awaiting[-1]
+    approved = next(n for n in awaiting if n is not rejected and drawn_source(n) != STRATEGIC)
+    record_verdict(out, approved.date, True, REVIEWER, "lab re-check agrees with the drawn rule", at)
+    codes = sorted({r["code"] for r in decision(rejected)["reasons"] if r["blocking"]})
+    why = f"the drawn rule is {STRATEGIC}'s own" if strategic else f"not convinced ({', '.join(codes)})"
+    record_verdict(out, rejected.date, False, REVIEWER, why, at)
+    return [f"{approved.date}: approved by {REVIEWER}", f"{rejected.date}: rejected by {REVIEWER} ({why})"]

@@ -146,8 +146,10 @@ def feature_plot(values: np.ndarray, accept_share: np.ndarray, feature: str, cut
     return _axis_box(width, height, "".join(parts), f"{feature} with the consensus and drawn cuts")
 
 
-def render_report(decision: Mapping, analysis=None) -> str:
+def render_report(decision: Mapping, analysis=None, in_force_before: Mapping | None = None) -> str:
     """The batch's ``report.html``."""
+    from truthsieve.pipeline.report_ledger import in_force_section
+
     date = decision["batch_date"]
     route = decision["route"]
     parts = [
@@ -166,8 +168,7 @@ def render_report(decision: Mapping, analysis=None) -> str:
         if reasons
         else "<p>No reasons: every check of the routing policy passed.</p>"
     )
-    if route == "review":
-        parts.append("<p>Until a reviewer acts, the previously published rule stays in force.</p>")
+    parts.append(in_force_section(decision, in_force_before))
 
     consensus, mechanism, drawn = decision["consensus"], decision["mechanism"], decision["draw"]
     parts.append("<h2 id='rules'>Consensus rule and drawn rule</h2>")
@@ -270,8 +271,14 @@ def render_report(decision: Mapping, analysis=None) -> str:
     return _page(f"truthsieve batch {date}", "".join(parts))
 
 
-def render_index(decisions: Sequence[Mapping]) -> str:
-    """``index.html``: route, ratio and flags per source for every night."""
+def render_index(decisions: Sequence[Mapping], ledger_entries: Sequence[Mapping] = ()) -> str:
+    """``index.html``: the rule in force now; per night route, verdict and who, rule in force
+    after the night, ratio and flags per source."""
+    from truthsieve.pipeline.ledger import derive, nights
+    from truthsieve.pipeline.report_ledger import verdict_cell
+
+    ledger_nights = nights(ledger_entries)
+    now = derive(ledger_entries)
     decisions = sorted(decisions, key=lambda d: d["batch_date"])
     sources = sorted({s["source_id"] for d in decisions for s in d["sources"]} | {q["source_id"] for d in decisions for q in d["quarantined"] if q["source_id"]})
     rows = []
@@ -288,11 +295,19 @@ def render_index(decisions: Sequence[Mapping]) -> str:
                 cells.append("".join(f"<span class='flag'>{_e(f)}</span>" for f in by_source[source]) or "&middot;")
         ratio = d["mechanism"]["ratio"] if d["mechanism"] else None
         link = f"<a href='batch_date={_e(d['batch_date'])}/report.html'>{_e(d['batch_date'])}</a>"
-        rows.append([link, f"<span class='route {_e(d['route'])}'>{_e(d['route'])}</span>", _f(ratio, 3), *cells])
+        then = derive(ledger_entries, d["batch_date"])
+        rows.append(
+            [
+                link, f"<span class='route {_e(d['route'])}'>{_e(d['route'])}</span>",
+                verdict_cell(ledger_nights.get(d["batch_date"])), _e(rule_text(then["rule"])), _f(ratio, 3), *cells,
+            ]
+        )
+    since = f" since {_e(now['since'])} (ledger line {_e(now['seq'])})" if now["rule"] else ""
     body = (
         "<h1>Label batches, night by night</h1>"
+        f"<p id='in-force'>Rule in force now: <strong>{_e(rule_text(now['rule']))}</strong>{since}.</p>"
         f"<div class='caution'><strong>Caution.</strong> {_e(CAUTION)}</div>"
-        + _table(["night", "route", "ratio", *sources], rows, text_columns=tuple(range(3 + len(sources))))
+        + _table(["night", "route", "verdict", "rule in force after", "ratio", *sources], rows, text_columns=tuple(range(5 + len(sources))))
     )
     return _page("truthsieve history", body)
 

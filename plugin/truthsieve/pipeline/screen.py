@@ -35,6 +35,7 @@ from truthsieve.pipeline.outputs import (
 )
 from truthsieve.pipeline.report import render_report
 from truthsieve.pipeline.routing import AGGREGATE, REVIEW, route_batch
+from truthsieve.pipeline.verdicts import REVIEW_NOTE, in_force_before, record_publication
 
 
 @dataclass
@@ -241,8 +242,13 @@ def decide(
     config: Config,
     history: Mapping,
     incentives: Sequence[SourceIncentive] | None = None,
+    in_force_before: Mapping | None = None,
 ) -> tuple[dict, dict[str, bytes], BatchAnalysis | None]:
-    """Analyse, route and render one batch: returns (decision, output files, analysis)."""
+    """Analyse, route and render one batch: returns (decision, output files, analysis).
+
+    ``in_force_before`` (see :func:`truthsieve.pipeline.verdicts.in_force_before`) only
+    feeds the report's "rule in force" section.
+    """
     key, demo_key = draw_key()
     analysis = None
     if intake.items.valid and intake.valid_sources:
@@ -263,14 +269,15 @@ def decide(
             "batch_date": intake.batch_date,
             "status": "awaiting_review",
             "blocking_reasons": [r for r in decision["reasons"] if r["blocking"]],
-            "note": "The previously published rule stays in force until a reviewer approves or rejects this batch.",
+            "note": REVIEW_NOTE,
+            "verdict": None,
         }
         files["review.json"] = dumps_decision(review)
     alerts = compose_alerts(decision, config)
     files["alerts.json"] = dumps_decision({"batch_date": intake.batch_date, "messages": alerts})
     if intake.errors:
         files["quarantine/errors.json"] = dumps_decision({"batch_date": intake.batch_date, "errors": decision["errors"]})
-    files["report.html"] = render_report(decision, analysis).encode()
+    files["report.html"] = render_report(decision, analysis, in_force_before).encode()
     return decision, files, analysis
 
 
@@ -307,7 +314,8 @@ def screen(
     with date_lock(out, batch_date, lock_timeout):
         recover(out, batch_date)
         history = read_history(out, batch_date, config.routing.drift_window)
-        decision, files, _ = decide(intake, config, history)
+        decision, files, _ = decide(intake, config, history, in_force_before=in_force_before(out, batch_date))
         files.update(quarantine_copies(inbox, intake))
         output = publish(out, batch_date, files)
+        record_publication(out, batch_date, files["decision.json"], lock_timeout)
     return ScreenResult(batch_date, decision, output)

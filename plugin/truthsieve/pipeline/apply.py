@@ -1,0 +1,107 @@
+"""Applying the rule in force to new items: label every row of an items table.
+
+Reads only the columns the rule needs (``item_id`` and the threshold's feature, or the
+listed rule's ``rule__<name>`` column), labels them in one vectorised pass over Arrow
+arrays, and writes ``item_id``, ``label`` and ``rule`` (the rule's JSON form, dictionary
+encoded so it costs one value) to Parquet through a temporary file and a rename. The
+file's schema metadata carries the whole of ``in_force.json``: rule, since, ledger line.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import uuid
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.parquet as pq
+
+from truthsieve.core.rules import RULE_COLUMN_PREFIX
+from truthsieve.exceptions import InputError
+from truthsieve.pipeline.verdicts import in_force
+
+
+def _needed_column(rule: dict) -> str | None:
+    if rule["kind"] == "threshold":
+        return rule["feature"]
+    if rule["kind"] == "listed":
+        return RULE_COLUMN_PREFIX + rule["name"]
+    return None
+
+
+def _first_bad_row(mask) -> int:
+    return int(np.flatnonzero(np.asarray(mask))[0]) + 1
+
+
+def label_items(table: pa.Table, rule: dict, source: str = "items") -> pa.Array:
+    """The rule's label of every row of ``table`` (int16 class indices).
+
+    :raises InputError: naming ``source``, column and first bad row.
+    """
+    n = table.num_rows
+    if rule["kind"] == "constant":
+        return pa.array(np.full(n, int(rule["label"]), dtype=np.int16))
+    column_name = _needed_column(rule)
+    column = table.column(column_name)
+    if column.null_count:
+        raise InputError(f"{source}: row {_first_bad_row(column.is_null().to_numpy(zero_copy_only=False))}, column {column_name!r}: null value")
+    if rule["kind"] == "listed":
+        if not (pa.types.is_boolean(column.type) or pa.types.is_integer(column.type)):
+            raise InputError(f"{source}: column {column_name!r} must be bool or integer class indices, not {column.type}")
+        return pc.cast(column, pa.int16()).combine_chunks()
+    if not (pa.types.is_integer(column.type) or pa.types.is_floating(column.type)):
+        raise InputError(f"{source}: column {column_name!r} must be numeric, not {column.type}")
+    values = column.to_numpy().astype(np.float64, copy=False)
+    finite = np.isfinite(values)
+    if not finite.all():
+        raise InputError(f"{source}: row {_first_bad_row(~finite)}, column {column_name!r}: value is not finite")
+    above = int(rule["above"])
+    below = int(rule.get("below", 1 - above))
+    return pa.array(np.where(values > rule["cut"], above, below).astype(np.int16))
+
+
+def apply_rule(out: str | Path, items_path: str | Path, write_path: str | Path, as_of: str | None = None) -> dict:
+    """Label ``items_path`` with the rule in force (on night ``as_of`` if given) and write
+    ``write_path``. Returns the rule's identity (``in_force.json``'s content) and the row count.
+
+    :raises InputError: no rule in force, a missing column, an unreadable file, or writing over the input.
+    """
+    items_path, write_path = Path(items_path), Path(write_path)
+    state = in_force(out, as_of)
+    if state["rule"] is None:
+        when = f" on {as_of}" if as_of else ""
+        raise InputError(f"{out}: no rule in force{when}: no night was aggregated or approved yet")
+    if write_path.resolve() == items_path.resolve():
+        raise InputError(f"{write_path}: --write must not be the items file (input files are never modified)")
+    try:
+        schema = pq.read_schema(items_path)
+    except (OSError, pa.ArrowException) as error:
+        raise InputError(f"{items_path}: cannot read it as Parquet ({error})") from None
+    rule = state["rule"]
+    needed = ["item_id"] + [c for c in [_needed_column(rule)] if c]
+    missing = [c for c in needed if c not in schema.names]
+    if missing:
+        why = " (a listed rule needs its rule__ column)" if rule["kind"] == "listed" else ""
+        raise InputError(f"{items_path}: column {missing[0]!r} is missing; the rule in force since {state['since']} needs it{why}")
+    table = pq.read_table(items_path, columns=needed)
+    ids = table.column("item_id")
+    if not (pa.types.is_string(ids.type) or pa.types.is_large_string(ids.type)):
+        raise InputError(f"{items_path}: column 'item_id' must be strings, not {ids.type}")
+    if ids.null_count:
+        raise InputError(f"{items_path}: row {_first_bad_row(ids.is_null().to_numpy(zero_copy_only=False))}, column 'item_id': null item id")
+    labels = label_items(table, rule, str(items_path))
+    identity = json.dumps(rule, sort_keys=True)
+    rule_column = pa.DictionaryArray.from_arrays(pa.array(np.zeros(table.num_rows, dtype=np.int32)), pa.array([identity]))
+    result = pa.table({"item_id": ids, "label": labels, "rule": rule_column})
+    result = result.replace_schema_metadata({"truthsieve.in_force": json.dumps(state, sort_keys=True)})
+    write_path.parent.mkdir(parents=True, exist_ok=True)
+    temporary = write_path.with_name(f".{write_path.name}.{uuid.uuid4().hex}.tmp")
+    try:
+        pq.write_table(result, temporary)
+        os.replace(temporary, write_path)
+    finally:
+        temporary.unlink(missing_ok=True)
+    return {**state, "rows": table.num_rows, "written": str(write_path)}

@@ -1,0 +1,116 @@
+"""The ledger's subcommands of ``truthsieve``: verdict, revoke, in-force, apply, ledger.
+
+The clock is read here, at the edge: a verdict's ``at`` is the current UTC time.
+Errors are raised as :class:`~truthsieve.exceptions.InputError` (exit 2, one line).
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime as dt
+import json
+from pathlib import Path
+
+from truthsieve.exceptions import InputError
+
+LEDGER_COMMANDS = ("verdict", "revoke", "in-force", "apply", "ledger")
+
+
+def _date(text: str) -> str:
+    try:
+        return dt.date.fromisoformat(text).isoformat()
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a date of the form YYYY-MM-DD") from None
+
+
+def add_ledger_commands(commands) -> None:
+    verdict = commands.add_parser("verdict", help="record a reviewer's approve or reject of a night awaiting review")
+    verdict.add_argument("--out", required=True, type=Path, help="output root")
+    verdict.add_argument("--date", required=True, type=_date, help="batch date, YYYY-MM-DD")
+    verdict.add_argument("--approve", action="store_true", help="put the night's drawn rule in force")
+    verdict.add_argument("--reject", action="store_true", help="keep the rule in force")
+    verdict.add_argument("--by", required=True, help="the reviewer's name")
+    verdict.add_argument("--note", default="", help="why (recorded in the ledger)")
+    verdict.add_argument("--lock-timeout", type=float, default=60.0)
+
+    revoke = commands.add_parser("revoke", help="withdraw the rule an already published night put in force (human override)")
+    revoke.add_argument("--out", required=True, type=Path)
+    revoke.add_argument("--date", required=True, type=_date)
+    revoke.add_argument("--by", required=True)
+    revoke.add_argument("--note", required=True, help="why the mechanism's rule is overridden")
+    revoke.add_argument("--lock-timeout", type=float, default=60.0)
+
+    in_force = commands.add_parser("in-force", help="show the rule in force")
+    in_force.add_argument("--out", required=True, type=Path)
+    in_force.add_argument("--as-of", type=_date, default=None, help="the rule in force on this night instead of now")
+    in_force.add_argument("--json", action="store_true", help="print in_force.json's content")
+
+    apply = commands.add_parser("apply", help="label an items table with the rule in force")
+    apply.add_argument("--out", required=True, type=Path)
+    apply.add_argument("--items", required=True, type=Path, help="items table (Parquet, the inbox's items schema)")
+    apply.add_argument("--write", required=True, type=Path, help="Parquet file to write: item_id, label, rule")
+    apply.add_argument("--as-of", type=_date, default=None, help="use the rule in force on this night")
+
+    ledger = commands.add_parser("ledger", help="check the ledger's hash chain, or list its events")
+    ledger.add_argument("--out", required=True, type=Path)
+    ledger.add_argument("--verify", action="store_true", help="check the chain; name the first broken line")
+
+
+def _now() -> str:
+    return dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds")
+
+
+def _describe(state: dict) -> str:
+    from truthsieve.pipeline.report import rule_text
+
+    if state["rule"] is None:
+        return "no rule in force: no night was aggregated or approved yet"
+    event = state["event"]
+    how = f"approved by {event['by']} at {event['at']}" if event["kind"] == "verdict" else "aggregated"
+    return f"rule in force: {rule_text(state['rule'])}\n  since night {state['since']} ({how}; ledger line {state['seq']})\n  decision sha256 {state['decision_sha256']}"
+
+
+def finish_demo(out: Path) -> None:
+    """The demo's reviewer records her verdicts; then the rule in force is printed."""
+    from truthsieve.pipeline import demo, verdicts
+
+    print(f"\nverdicts of {demo.REVIEWER}:")
+    for line in demo.record_demo_verdicts(out, _now()):
+        print(f"  {line}")
+    print(_describe(verdicts.in_force(out)))
+
+
+def run_ledger_command(args) -> int:
+    from truthsieve.pipeline import ledger, verdicts
+
+    if args.command == "verdict":
+        if args.approve == args.reject:
+            raise InputError("verdict needs exactly one of --approve or --reject")
+        state = verdicts.record_verdict(args.out, args.date, args.approve, args.by, args.note, _now(), args.lock_timeout)
+        print(f"night {args.date}: {'approved' if args.approve else 'rejected'} by {args.by.strip()}")
+        print(_describe(state))
+        return 0
+    if args.command == "revoke":
+        state = verdicts.record_revocation(args.out, args.date, args.by, args.note, _now(), args.lock_timeout)
+        print(f"night {args.date}: its rule revoked by {args.by.strip()} (human override of the mechanism)")
+        print(_describe(state))
+        return 0
+    if args.command == "in-force":
+        state = verdicts.in_force(args.out, args.as_of)
+        print(json.dumps(state, sort_keys=True, indent=2) if args.json else _describe(state))
+        return 0
+    if args.command == "apply":
+        from truthsieve.pipeline.apply import apply_rule
+
+        result = apply_rule(args.out, args.items, args.write, args.as_of)
+        print(f"{result['rows']} items labelled into {result['written']}")
+        print(_describe(result))
+        return 0
+    entries = ledger.read_ledger(args.out)
+    if args.verify:
+        print(f"{ledger.LEDGER}: {len(entries)} lines, hash chain intact")
+        return 0
+    for e in entries:
+        detail = {k: v for k, v in e.items() if k not in ("seq", "prev", "sha256", "event", "date", "rule", "puts_in_force", "withdrawn_rule")}
+        print(f"{e['seq']:>5}  {e['event']:<22} {e.get('date') or e.get('since') or '-':<10}  {json.dumps(detail, sort_keys=True)}")
+    return 0
