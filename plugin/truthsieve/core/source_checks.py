@@ -6,7 +6,8 @@ codes, each evidence for a human, not a verdict:
 
 ============================  ================================================================
 ``rule_shaped``               one rule of the class fits the source's labels (almost) exactly
-                              while it disagrees with the consensus: the shape of a
+                              while it disagrees with the consensus, or while it pulls the
+                              fit (a lie that won no longer disagrees): the shape of a
                               best-response report under ERM.
 ``far_from_consensus``        disagreement with the consensus rule above ``max_disagreement``.
 ``low_reliability``           Dawid-Skene balanced accuracy below ``min_balanced_accuracy``.
@@ -158,7 +159,7 @@ def _with_flags(report: SourceReport, t: FlagThresholds) -> SourceReport:
     incentive = report.incentive
     checks = {
         "rule_shaped": incentive.own_best_risk <= t.rule_shape_tolerance
-        and report.disagreement >= t.rule_shape_min_disagreement,
+        and (report.disagreement >= t.rule_shape_min_disagreement or incentive.pull >= t.max_pull),
         "far_from_consensus": report.disagreement > t.max_disagreement,
         "low_reliability": report.balanced_accuracy < t.min_balanced_accuracy,
         "low_agreement": report.kappa is not None and report.kappa < t.min_kappa,
