@@ -157,3 +157,23 @@ def test_screen_reads_the_published_decision(tmp_path, monkeypatch):
     revised = screen(inbox, DATE, config, out).decision
     assert revised["draw_revision"] == 1 and revised["route"] == "review"
     assert revised["earlier_draws"][0]["u"] == first["draw"]["u"]
+
+
+def test_min_valid_sources_above_one_lets_a_source_veto_by_staying_away(monkeypatch):
+    """Why the default is 1. Two sources, one lot: A rejects, X accepts; weights 1, 1;
+    random dictator: X's expected risk is 1/2 * 0 + 1/2 * 1 = 1/2 when it takes part.
+    With min_valid_sources 2, staying away sends the night to review and keeps the rule
+    in force (all-1, X's own best): risk 0. With the default 1 it cannot: away, the
+    lottery is A's rule alone, risk 1 >= 1/2."""
+    from fractions import Fraction
+
+    from test_strategy_proof import best_deviation
+
+    monkeypatch.delenv("TRUTHSIEVE_DRAW_KEY", raising=False)
+    instance = Instance(n_items=1, labels={"A": {0: 0}, "X": {0: 1}}, source_weights={"A": 1, "X": 1}, item_weights=(1,))
+    strict = config_for(instance, "constant", "random_dictator", instance.source_weights, min_valid_sources=2)
+    ((truthful, best, how),) = best_deviation(instance, strict, "X", [(1,)])
+    assert (truthful, best, how) == (Fraction(1, 2), Fraction(0), "away")
+    default = config_for(instance, "constant", "random_dictator", instance.source_weights)
+    ((truthful, best, _),) = best_deviation(instance, default, "X", [(1,)])
+    assert best == truthful == Fraction(1, 2)

@@ -17,7 +17,7 @@ import numpy as np
 import pytest
 
 from core_support import FEATURES
-from oracle import Instance, all_reports, dictator_lottery, enumerate_rules, private_risk, rng_instance, without
+from oracle import Instance, all_reports, dictator_lottery, enumerate_rules, own_erm, private_risk, rng_instance, without
 from truthsieve.pipeline.config import Config
 from truthsieve.pipeline.ingest import FileCheck, InputFile
 from truthsieve.pipeline.routing import AGGREGATE
@@ -86,25 +86,36 @@ def mechanisms_for(kind: str) -> list[str]:
 
 CASES = [(kind, seed) for kind in ("constant", "threshold") for seed in range(6)]
 
+# Default thresholds flag nearly every truthful source of a tiny random batch; the
+# second policy flags only reports far from the consensus, so a flag that gated the
+# route would show up as a profitable misreport.
+POLICIES = {"defaults": {}, "one_flag": {
+    "max_disagreement": 0.5, "min_kappa": -1.0, "min_balanced_accuracy": 0.0, "rule_shape_tolerance": 0.0,
+    "rule_shape_min_disagreement": 1.0, "max_gain": 1.0, "max_pull": 1.0,
+}}
 
+
+@pytest.mark.parametrize("policy", sorted(POLICIES))
 @pytest.mark.parametrize(("kind", "seed"), CASES)
-def test_no_report_and_no_absence_pays_in_strategy_proof_mode(kind, seed, monkeypatch):
+def test_no_report_and_no_absence_pays_in_strategy_proof_mode(kind, seed, policy, monkeypatch):
     monkeypatch.delenv("TRUTHSIEVE_DRAW_KEY", raising=False)
     rng = np.random.default_rng(7000 + seed)
-    instance = rng_instance(rng, int(rng.integers(2, 5)), int(rng.integers(3, 6)), bool(seed % 2 == 0), kind)
+    instance = rng_instance(rng, 2 + seed % 3, 3 + (seed // 2) % 3, bool(seed % 2 == 0), kind)  # 2-4 sources, 3-5 items
     registry = dict(instance.source_weights)
     if seed % 3 == 0:
         registry["src-registered-away"] = 2  # registered, never present
     features = FEATURES if kind == "threshold" else []
     rules = [labelling for _, labelling in enumerate_rules(instance, kind, features)]
-    in_force_choices = [rules[0], rules[1], rules[-1]]
     for mechanism in mechanisms_for(kind):
-        config = config_for(instance, kind, mechanism, registry)
+        config = config_for(instance, kind, mechanism, registry, **POLICIES[policy])
         if mechanism.endswith("dictator"):
             _, _, analysis = decide(intake_for(instance), config, {})
             exact = dictator_lottery(instance, mechanism, kind, features, registry)
             assert [e.probability for e in analysis.mechanism.lottery] == pytest.approx([float(p) for _, p, _ in exact], abs=1e-12)
         for source in instance.sources:
+            # the rule in force before the night: the constants, the last rule, and the
+            # source's own best rule (what it would most like review to keep)
+            in_force_choices = [rules[0], rules[1], rules[-1], own_erm(instance, kind, features, source)[1]]
             for truthful, best, how in best_deviation(instance, config, source, in_force_choices):
                 assert best == truthful, (mechanism, source, how)
 
