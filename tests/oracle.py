@@ -143,3 +143,58 @@ def rng_instance(rng: np.random.Generator, n_sources: int, n_items: int, shared:
         features=features,
         listed=listed,
     )
+
+
+def without(instance: Instance, source: str) -> Instance:
+    """The same batch with ``source`` staying away (its registry weight is kept)."""
+    return replace(instance, labels={s: y for s, y in instance.labels.items() if s != source})
+
+
+def dictator_scores(mechanism: str, registry: dict[str, int]) -> dict[str, Fraction]:
+    """The fixed score of every registered source (probability ∝ score over those present).
+
+    ``tuned_dictator``: ``v / (1 - v)`` with ``v`` the registry weight normalised over
+    every *registered* source, present or not.
+    """
+    total = sum(registry.values())
+    if mechanism == "random_dictator":
+        return {s: Fraction(1) for s in registry}
+    if mechanism == "weighted_dictator":
+        return {s: Fraction(w) for s, w in registry.items()}
+    if len(registry) == 1:
+        return {s: Fraction(1) for s in registry}
+    return {s: Fraction(w, total) / (1 - Fraction(w, total)) for s, w in registry.items()}
+
+
+def dictator_lottery(instance: Instance, mechanism: str, kind: str, features: list[str], registry: dict[str, int]):
+    """[(source, probability, own ERM labelling)] over the sources present, exactly."""
+    scores = dictator_scores(mechanism, registry)
+    present = instance.sources
+    total = sum(scores[s] for s in present)
+    return [(s, scores[s] / total, own_erm(instance, kind, features, s)[1]) for s in present]
+
+
+def lottery_private_risk(instance: Instance, lottery, source: str, truth: dict[int, int]) -> Fraction:
+    """Expected private risk of ``source`` (judged on its ``truth``) under a lottery."""
+    return sum((p * private_risk(instance, source, labelling, truth) for _, p, labelling in lottery), Fraction(0))
+
+
+def dictator_guarantee(instance: Instance, lottery) -> Fraction:
+    """``1 + 2 max_i p_i (1 - w_i) / w_i`` with ``w`` normalised over the sources present."""
+    if len(lottery) == 1:
+        return Fraction(1)
+    weights = normalised_weights(instance)
+    return 1 + 2 * max(p * (1 - weights[s]) / weights[s] for s, p, _ in lottery)
+
+
+def others_risk(instance: Instance, source: str, labelling) -> Fraction:
+    """``G_{-i}(c)``: the other sources' weighted risk, weights normalised over all present."""
+    weights = normalised_weights(instance)
+    return sum((weights[s] * private_risk(instance, s, labelling) for s in instance.sources if s != source), Fraction(0))
+
+
+def brute_force_pull(instance: Instance, kind: str, features: list[str], source: str) -> Fraction:
+    """``G_{-i}(ERM with i) - G_{-i}(ERM without i)``, both fits found by enumeration."""
+    with_source = erm(instance, kind, features)[1]
+    without_source = erm(without(instance, source), kind, features)[1]
+    return others_risk(instance, source, with_source) - others_risk(instance, source, without_source)

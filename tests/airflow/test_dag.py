@@ -94,7 +94,7 @@ def test_dag_run_publishes_the_same_decision_as_the_cli_and_alerts_owners(airflo
     from_cli = (tmp_path / "cli-out" / f"batch_date={DATE}" / "decision.json").read_bytes()
     assert from_dag == from_cli
     decision = json.loads(from_dag)
-    assert decision["route"] == "review"
+    assert decision["route"] == "aggregate"  # strategy_proof (default): the flag is alerted, not a gate
 
     recipients = sorted(m["X-Envelope-To"] for m in received)
     assert recipients == ["platform@example.org", "south@example.org"]

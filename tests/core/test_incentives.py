@@ -93,3 +93,42 @@ def test_budget_zero_reports_a_bracket_not_an_exact_value():
     for i in range(matrix.n_sources):
         result = source_incentive(matrix, rule_class, consensus, i, budget=0)
         assert result.gain_exact == (result.gain_upper == result.gain_lower)
+
+
+@pytest.mark.parametrize("kind", ["constant", "threshold", "listed"])
+@pytest.mark.parametrize("seed", range(25))
+def test_pull_equals_brute_force_with_and_without_the_source(kind, seed):
+    from oracle import brute_force_pull, enumerate_rules, erm, others_risk
+
+    rng = np.random.default_rng(1000 + seed)
+    instance = rng_instance(rng, int(rng.integers(2, 5)), int(rng.integers(2, 7)), bool(seed % 3), kind)
+    _, _, _, results = analyse(instance, kind)
+    features = FEATURES if kind == "threshold" else []
+    for result in results:
+        expected = brute_force_pull(instance, kind, features, result.source_id)
+        assert result.pull == pytest.approx(float(expected), abs=1e-12)
+        # and the others' ERM is their minimum: pull = G(e) - min_c G(c)
+        floor = min(others_risk(instance, result.source_id, labelling) for _, labelling in enumerate_rules(instance, kind, features))
+        at_consensus = others_risk(instance, result.source_id, erm(instance, kind, features)[1])
+        assert result.pull == pytest.approx(float(at_consensus - floor), abs=1e-12)
+        assert result.pull <= float(instance.source_weights[result.source_id]) / sum(instance.source_weights.values()) + 1e-12
+
+
+def test_pull_of_a_source_that_moved_the_fit_by_hand():
+    """Three lots, constant class; A (weight 2) rejects all, B (weight 3) accepts all.
+
+    ERM: R(all-0) = 3/5, R(all-1) = 2/5 -> all-1, B's rule. Without B the others' ERM is
+    all-0 (A's). pull_B = G_A(all-1) - G_A(all-0) = 2/5 * 1 - 0 = 0.4; pull_A: without A
+    the fit stays all-1, so 0. Gain is 0 for both: B already got its rule, A cannot win.
+    """
+    from oracle import Instance
+
+    instance = Instance(
+        n_items=3,
+        labels={"A": {0: 0, 1: 0, 2: 0}, "B": {0: 1, 1: 1, 2: 1}},
+        source_weights={"A": 2, "B": 3},
+        item_weights=(1, 1, 1),
+    )
+    _, _, _, (a, b) = analyse(instance, "constant")
+    assert (a.pull, b.pull) == (pytest.approx(0.0), pytest.approx(0.4))
+    assert b.gain_upper == 0.0

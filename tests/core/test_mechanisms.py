@@ -280,3 +280,76 @@ def test_two_rule_mechanism_on_another_class_raises():
 def test_impossible_inputs_raise_specific_errors(labels, items, weights, error):
     with pytest.raises(error):
         build_label_matrix(labels, items, weights)
+
+
+DICTATORS = ["random_dictator", "weighted_dictator", "tuned_dictator"]
+
+
+@pytest.mark.parametrize("mechanism", DICTATORS)
+@pytest.mark.parametrize("kind", ["constant", "threshold", "listed"])
+@pytest.mark.parametrize("seed", range(12))
+def test_no_source_gains_by_staying_away(mechanism, kind, seed):
+    from oracle import dictator_guarantee, dictator_lottery, lottery_private_risk, rng_instance, without
+
+    rng = np.random.default_rng(seed)
+    instance = rng_instance(rng, int(rng.integers(2, 5)), int(rng.integers(2, 6)), bool(seed % 2), kind)
+    registry = dict(instance.source_weights)
+    features = FEATURES if kind == "threshold" else []
+    present = dictator_lottery(instance, mechanism, kind, features, registry)
+
+    matrix, rule_class = core_objects(instance, kind)
+    result = run_mechanism(mechanism, matrix, rule_class, registry_weights=registry)
+    assert [e.probability for e in result.lottery] == pytest.approx([float(p) for _, p, _ in present], abs=1e-12)
+    assert result.guarantee == pytest.approx(float(dictator_guarantee(instance, present)), abs=1e-12)
+
+    for source in instance.sources:
+        truth = instance.labels[source]
+        away = without(instance, source)
+        absent_lottery = dictator_lottery(away, mechanism, kind, features, registry)
+        assert lottery_private_risk(instance, present, source, truth) <= lottery_private_risk(instance, absent_lottery, source, truth)
+        # the core's lottery without the source matches the oracle's
+        matrix_away, rule_class_away = core_objects(away, kind)
+        result_away = run_mechanism(mechanism, matrix_away, rule_class_away, registry_weights=registry)
+        assert [e.probability for e in result_away.lottery] == pytest.approx([float(p) for _, p, _ in absent_lottery], abs=1e-12)
+        assert result_away.guarantee == pytest.approx(float(dictator_guarantee(away, absent_lottery)), abs=1e-12)
+
+
+def test_tuned_dictator_participation_on_the_hand_instance():
+    """Registry weights A=6, i=2, B=C=1; one lot; A and i accept it, B and C reject it.
+
+    Own best rules: A and i accept everything, B and C reject everything, so i's risk
+    is 1 exactly when B or C is drawn. Registry shares 6/10, 2/10, 1/10, 1/10 give odds
+    v/(1-v) = 3/2, 1/4, 1/9, 1/9.
+      present: P(B or C) = (2/9) / (3/2 + 1/4 + 2/9) = (8/36) / (71/36) = 8/71 = 0.1127
+      away, fixed odds: (2/9) / (3/2 + 2/9) = (4/18) / (31/18) = 4/31 = 0.1290  >= 8/71
+      away, old odds renormalised over A, B, C (6/8, 1/8, 1/8 -> 3, 1/7, 1/7):
+            (2/7) / (23/7) = 2/23 = 0.0870  < 8/71: staying away paid.
+    Guarantee away (fixed): p = 27/31, 2/31, 2/31 with w = 3/4, 1/8, 1/8 present:
+      max(27/31 * (1/4)/(3/4), 2/31 * (7/8)/(1/8)) = 14/31 -> 1 + 28/31 = 59/31.
+    """
+    registry = {"A": 6, "i": 2, "B": 1, "C": 1}
+    instance = Instance(
+        n_items=1,
+        labels={"A": {0: 1}, "i": {0: 1}, "B": {0: 0}, "C": {0: 0}},
+        source_weights=registry,
+        item_weights=(1,),
+    )
+
+    def risk_of_i(batch, registry_weights):
+        matrix, rule_class = core_objects(batch, "constant")
+        result = run_mechanism("tuned_dictator", matrix, rule_class, registry_weights=registry_weights)
+        return sum(e.probability * float(private_risk(instance, "i", labelling_of(rule_class, e.rule))) for e in result.lottery), result
+
+    from oracle import without
+
+    present, _ = risk_of_i(instance, registry)
+    away, result_away = risk_of_i(without(instance, "i"), registry)
+    assert present == pytest.approx(8 / 71, abs=1e-12)
+    assert away == pytest.approx(4 / 31, abs=1e-12)
+    assert present <= away
+    assert result_away.guarantee == pytest.approx(59 / 31, abs=1e-12)
+    # The old formula (odds from weights renormalised over the sources present): the
+    # registry is then just the sources present, and staying away pays.
+    old_away, _ = risk_of_i(without(instance, "i"), None)
+    assert old_away == pytest.approx(2 / 23, abs=1e-12)
+    assert old_away < present

@@ -24,7 +24,8 @@ def screen_args(inbox: Path, config: Path, out: Path, date: str = DATE) -> list[
 
 
 def test_both_routes_are_reached_and_outputs_match_the_route(tmp_path):
-    config = write_config(tmp_path / "c.yaml")
+    # guarded mode: a flag sends the night to review (strategy_proof mode would aggregate)
+    config = write_config(tmp_path / "c.yaml", routing={"mode": "guarded"})
     honest, bent = tmp_path / "honest", tmp_path / "bent"
     write_batch(honest, DATE, seed=1)
     write_batch(bent, DATE, seed=1, bend={"south": 16.0})
@@ -151,7 +152,10 @@ def test_demo_flags_the_strategic_member_and_tells_the_careless_one_apart(demo_r
     assert flags[demo.CARELESS] and "rule_shaped" not in flags[demo.CARELESS]
     assert flags[demo.STRATEGIC] != flags[demo.CARELESS]
     honest = [s for s, _, _ in demo.GRADERS if s not in (demo.STRATEGIC, demo.CARELESS)]
-    assert all(not flags[s] for s in honest if s in flags)
+    # Honest members look far from a consensus the strategic member moved, but none
+    # looks like a best response or pulls the fit.
+    assert all(not flags[s] & {"rule_shaped", "pulls_fit"} for s in honest if s in flags)
+    assert "pulls_fit" in flags[demo.STRATEGIC]
     first_bent = json.loads((out / f"batch_date={demo.night_dates()[demo.STRATEGIC_FROM - 1]}" / "decision.json").read_text())
     cedar = next(s for s in first_bent["sources"] if s["source_id"] == demo.STRATEGIC)
     assert "drift_positive_rate" in cedar["flags"]

@@ -80,8 +80,9 @@ def test_bad_source_file_is_quarantined_with_a_precise_error(tmp_path, rule):
     assert records, decision["errors"]
     assert records[0]["row"] == row and records[0]["column"] == column
     assert path.relative_to(inbox).as_posix().startswith(records[0]["file"])
-    assert decision["route"] == "review"
-    assert any(r["code"] == "source_quarantined" and r["source_id"] == source for r in decision["reasons"])
+    # strategy_proof mode (default): a quarantined source is absent, noted, not blocking
+    assert decision["route"] == "aggregate"
+    assert any(r["code"] == "source_quarantined" and r["source_id"] == source and not r["blocking"] for r in decision["reasons"])
     copy = batch / "quarantine" / path.relative_to(folder)
     assert copy.read_bytes() == path.read_bytes()
     assert json.loads((batch / "quarantine" / "errors.json").read_text())["errors"] == decision["errors"]

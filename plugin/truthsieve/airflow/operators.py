@@ -176,6 +176,7 @@ class DecideAndPublishOperator(_BatchOperator):
         from truthsieve.core.incentives import SourceIncentive
         from truthsieve.pipeline.cli import write_index
         from truthsieve.pipeline.outputs import date_lock, publish, read_history, recover
+        from truthsieve.pipeline.revisions import read_published_decision
         from truthsieve.pipeline.screen import decide, quarantine_copies
 
         config = self.load_config()
@@ -190,7 +191,8 @@ class DecideAndPublishOperator(_BatchOperator):
 
         def decide_and_collect(out_location):
             history = read_history(out_location, self.batch_date, config.routing.drift_window)
-            decision, files, _ = _fail_on_bad_input(lambda: decide(intake, config, history, incentives))
+            previous = read_published_decision(out_location, self.batch_date)
+            decision, files, _ = _fail_on_bad_input(lambda: decide(intake, config, history, incentives, previous))
             files.update(quarantine_copies(storage.location(self.inbox), intake))
             return decision, files
 

@@ -34,6 +34,14 @@ along any order of the disagreeing items; a binary search over a prefix in a use
 order gives a lie that works (``lie_weight_upper``). For the constant class with unit
 item weights every disagreeing item is alike and the upper value is the minimum.
 
+**Pull on the fit.** ``gain`` takes the report as the truth, so a source that already
+reports its target rule shows gain 0: its lie has won. ``pull`` looks at the others
+instead: ``pull_i = G(e) - min_c G(c) = G(e) - G(o)``, the others' weighted risk that
+``i``'s report adds by moving the fit from the others' own ERM ``o`` to the consensus
+``e``. It is 0 when ``i`` does not move the fit, and at most ``w``: ERM chose ``e``
+over ``o``, so ``G(e) - G(o) <= w (R_i(o) - R_i(e)) <= w``. An honest source in
+the majority pulls almost nothing; a strategic report that won pulls a lot.
+
 Under every strategy-proof mechanism the gain is 0 by construction; this module
 measures the consensus fit, which is what would be used without them.
 """
@@ -56,7 +64,9 @@ class SourceIncentive:
     """One source's incentive to misreport under the consensus fit.
 
     ``target_rule`` is the reachable rule of lowest ``R_i`` found; ``damage`` is the
-    global risk the lie towards it would add, ``R(target) - r*``.
+    global risk the lie towards it would add, ``R(target) - r*``. ``pull`` is
+    ``G(e) - G(o)`` with ``G`` the others' weighted risk (night's normalised weights),
+    ``e`` the consensus and ``o = others_rule`` the others' own ERM.
     """
 
     source_id: str
@@ -72,6 +82,8 @@ class SourceIncentive:
     lie_weight_upper: float
     damage: float
     checks: int
+    pull: float = 0.0
+    others_rule: int = 0
 
 
 def _reaches(rule_class, others, weight, matrix, index, report, target) -> bool:
@@ -192,6 +204,8 @@ def source_incentive(
         lie_weight_upper=lie_upper,
         damage=max(0.0, float(global_risks[target] - consensus.risk)),
         checks=checks,
+        pull=max(0.0, float(others_risks[consensus_rule] - others_risks[others_rule])),
+        others_rule=int(others_rule),
     )
 
 

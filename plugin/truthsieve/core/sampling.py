@@ -59,13 +59,57 @@ def holm_adjust(p_values: np.ndarray) -> np.ndarray:
     return adjusted
 
 
-def items_needed(n_sources: int, n_rules: int, epsilon: float, delta: float) -> int:
-    """Shared items so every source's risk estimate of every rule is within ``epsilon``
-    of its truth with probability ``1 - delta``.
+def threshold_growth(n_features: int, m: int) -> int:
+    """Growth function bound of one-feature thresholds over ``n_features`` features:
+    on ``m`` items each feature gives at most ``m + 1`` cut positions times two
+    orientations, so at most ``2 d (m + 1)`` labelings (the constants included)."""
+    return 2 * n_features * (m + 1)
 
-    Hoeffding's inequality for one rule and source, ``P(|R_hat - R| > e) <= 2 exp(-2 m e^2)``,
-    with a union bound over ``n_sources * n_rules`` pairs:
-    ``m >= ln(2 n_sources n_rules / delta) / (2 e^2)`` (Hoeffding, "Probability inequalities
-    for sums of bounded random variables", JASA 58, 1963). Unit item weights assumed.
+
+def items_needed(
+    n_sources: int,
+    epsilon: float,
+    delta: float,
+    *,
+    finite_size: int | None = None,
+    threshold_features: int | None = None,
+) -> int:
+    """Shared items sufficient for every source's risk estimate of every rule of the
+    class to be within ``epsilon`` of its truth, all at once, with probability
+    ``1 - delta`` (``delta / n_sources`` per source; unit item weights assumed).
+
+    The class must be fixed before the labels are seen: a union bound over the cuts
+    a batch happens to offer would depend on the data and prove nothing.
+
+    * A finite class fixed by the items (``constant``: 2 rules; ``listed``: the
+      listed rules), ``finite_size = k``: Hoeffding's inequality and a union bound,
+      ``m >= ln(2 k n / delta) / (2 epsilon^2)`` ("Understanding Machine Learning:
+      From Theory to Algorithms", Cambridge University Press, 2014, Corollary 4.6).
+    * One-feature thresholds over ``d = threshold_features`` features, through the
+      growth function ``tau(m) <= 2 d (m + 1)``: the smallest ``m`` with
+      ``(4 + sqrt(ln tau(2m))) / ((delta / n) sqrt(2m)) <= epsilon`` (same book,
+      Theorem 6.11, the uniform-convergence theorem for classes of finite VC
+      dimension through the growth function). Its Markov step puts ``delta`` in the
+      denominator, so the number is sufficient, not necessary, and large.
     """
-    return int(math.ceil(math.log(2.0 * n_sources * n_rules / delta) / (2.0 * epsilon * epsilon)))
+    per_source = delta / n_sources
+    if finite_size is not None:
+        return int(math.ceil(math.log(2.0 * finite_size / per_source) / (2.0 * epsilon * epsilon)))
+    if threshold_features is None:
+        raise ValueError("items_needed needs finite_size or threshold_features")
+
+    def enough(m: int) -> bool:
+        tau = threshold_growth(threshold_features, 2 * m)
+        return (4.0 + math.sqrt(math.log(tau))) / (per_source * math.sqrt(2.0 * m)) <= epsilon
+
+    high = 1
+    while not enough(high):
+        high *= 2
+    low = high // 2  # not enough (or 0)
+    while high - low > 1:
+        middle = (low + high) // 2
+        if enough(middle):
+            high = middle
+        else:
+            low = middle
+    return high

@@ -6,13 +6,17 @@ codes, each evidence for a human, not a verdict:
 
 ============================  ================================================================
 ``rule_shaped``               one rule of the class fits the source's labels (almost) exactly
-                              while it disagrees with the consensus: the shape of a
+                              while it disagrees with the consensus, or while it pulls the
+                              fit (a lie that won no longer disagrees): the shape of a
                               best-response report under ERM.
 ``far_from_consensus``        disagreement with the consensus rule above ``max_disagreement``.
 ``low_reliability``           Dawid-Skene balanced accuracy below ``min_balanced_accuracy``.
 ``low_agreement``             Cohen's kappa with the consensus labels below ``min_kappa``.
 ``gain_from_lying``           the source could lower its risk under plain ERM by at least
                               ``max_gain`` (lower end of the bracket).
+``pulls_fit``                 the source's report moves the consensus fit so that the other
+                              sources' weighted risk rises by at least ``max_pull``
+                              (see :mod:`truthsieve.core.incentives`).
 ``drift_positive_rate``       positive rate differs from the source's trailing history
                               (two-proportion z-test, Holm-corrected over all tests).
 ``drift_disagreement``        disagreement rate differs from its trailing history (same test).
@@ -38,6 +42,7 @@ FLAG_CODES = (
     "low_reliability",
     "low_agreement",
     "gain_from_lying",
+    "pulls_fit",
     "drift_positive_rate",
     "drift_disagreement",
 )
@@ -53,6 +58,7 @@ class FlagThresholds:
     min_balanced_accuracy: float = 0.8
     min_kappa: float = 0.5
     max_gain: float = 0.05
+    max_pull: float = 0.02
     drift_alpha: float = 0.01
     confidence: float = 0.95
 
@@ -153,11 +159,12 @@ def _with_flags(report: SourceReport, t: FlagThresholds) -> SourceReport:
     incentive = report.incentive
     checks = {
         "rule_shaped": incentive.own_best_risk <= t.rule_shape_tolerance
-        and report.disagreement >= t.rule_shape_min_disagreement,
+        and (report.disagreement >= t.rule_shape_min_disagreement or incentive.pull >= t.max_pull),
         "far_from_consensus": report.disagreement > t.max_disagreement,
         "low_reliability": report.balanced_accuracy < t.min_balanced_accuracy,
         "low_agreement": report.kappa is not None and report.kappa < t.min_kappa,
         "gain_from_lying": incentive.gain_lower >= t.max_gain,
+        "pulls_fit": incentive.pull >= t.max_pull,
         "drift_positive_rate": report.drift_positive_rate_p is not None and report.drift_positive_rate_p < t.drift_alpha,
         "drift_disagreement": report.drift_disagreement_p is not None and report.drift_disagreement_p < t.drift_alpha,
     }

@@ -69,7 +69,8 @@ def analyse_batch(
     if incentives is None:
         budget = config.analysis.incentive_budget
         incentives = [source_incentive(matrix, rule_class, consensus, i, budget) for i in range(matrix.n_sources)]
-    mechanism = run_mechanism(config.mechanism, matrix, rule_class, consensus)
+    registry_weights = {s.source_id: s.weight for s in config.sources}
+    mechanism = run_mechanism(config.mechanism, matrix, rule_class, consensus, registry_weights)
     reliability = dawid_skene(
         matrix.labels,
         matrix.labelled,
@@ -89,7 +90,13 @@ def analyse_batch(
         sources=reports,
         krippendorff_alpha=alpha,
         fleiss_kappa=fleiss,
-        items_needed=items_needed(
-            matrix.n_sources, rule_class.size, config.analysis.sample_epsilon, config.analysis.sample_delta
-        ),
+        items_needed=items_needed_for(matrix.n_sources, rule_class, config),
     )
+
+
+def items_needed_for(n_sources: int, rule_class: RuleClass, config: Config) -> int:
+    """:func:`~truthsieve.core.sampling.items_needed` for the configured class."""
+    epsilon, delta = config.analysis.sample_epsilon, config.analysis.sample_delta
+    if rule_class.kind == "threshold":
+        return items_needed(n_sources, epsilon, delta, threshold_features=len(config.rule_class.features))
+    return items_needed(n_sources, epsilon, delta, finite_size=rule_class.size)

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import hashlib
+import json
 from pathlib import Path
 from typing import Literal
 
@@ -75,26 +77,60 @@ class SourceEntry(_Strict):
     owner: str | None = None
 
 
-class RoutingPolicy(_Strict):
-    """``routing``: when a batch may go to the strategy-proof aggregation step.
+ROUTING_MODES = ("strategy_proof", "guarded")
 
-    A batch is aggregated only when every check passes; otherwise it goes to review and
-    the previously published rule stays in force.
+
+class RoutingPolicy(_Strict):
+    """``routing``: when a batch may go to the aggregation step, and which numbers are alerts.
+
+    ``mode: strategy_proof`` (the default): the route depends only on what no source's
+    labels can change: the items table's validity, the configuration (``max_ratio``
+    gates on the worst-case guarantee of the whole registry, which depends on weights
+    alone) and the number of valid sources present. Flags, ratios, drift and kappas
+    are published, alerted and shown for review, but never change the route; a
+    quarantined source counts as absent (noted, not blocking).
+
+    ``min_valid_sources`` is the one gate a source can still trip, by staying away or
+    sending a broken file. With a value ``k >= 2`` and exactly ``k`` valid sources, any
+    one of them can send the night to review alone (keeping the rule in force it may
+    prefer). With ``k = 1`` no source alone can trip it while another valid source is
+    present, and a source that is alone gets its own best rule, so leaving cannot help
+    it either. Hence the default 1.
+
+    ``mode: guarded``: the older behaviour. Flags listed in ``review_on_flags``, the
+    realised ratio against ``max_ratio``, an undefined ratio and more than
+    ``max_invalid_sources`` quarantined sources also send the night to review. Every
+    one of those gates can be tripped by a report, so this mode is NOT strategy-proof.
+
+    In review the previously published rule stays in force.
     """
 
-    min_valid_sources: int = Field(2, ge=1, description="fewer valid sources than this: review")
-    max_invalid_sources: int = Field(0, ge=0, description="more quarantined sources than this: review")
-    max_ratio: float = Field(2.0, ge=1.0, description="mechanism's expected risk / consensus risk above this: review")
-    review_on_flags: list[str] = Field(default_factory=lambda: list(FLAG_CODES), description="flags that send a batch to review")
+    mode: Literal[ROUTING_MODES] = Field("strategy_proof", description="strategy_proof (default) or guarded")  # type: ignore[valid-type]
+    min_valid_sources: int = Field(1, ge=1, description="fewer valid sources than this: review")
+    max_invalid_sources: int = Field(0, ge=0, description="guarded: more quarantined sources than this: review")
+    max_ratio: float | None = Field(
+        None,
+        ge=1.0,
+        description="strategy_proof: registry guarantee above this: review (default 3); guarded: realised ratio above this: review (default 2)",
+    )
+    review_on_flags: list[str] = Field(default_factory=lambda: list(FLAG_CODES), description="guarded: flags that send a batch to review")
     rule_shape_tolerance: float = Field(0.01, ge=0, le=1)
     rule_shape_min_disagreement: float = Field(0.05, ge=0, le=1)
     max_disagreement: float = Field(0.2, ge=0, le=1)
     min_balanced_accuracy: float = Field(0.8, ge=0, le=1)
     min_kappa: float = Field(0.5, ge=-1, le=1)
     max_gain: float = Field(0.05, ge=0, le=1)
+    max_pull: float = Field(0.02, ge=0, le=1, description="pulls_fit at or above this")
     drift_alpha: float = Field(0.01, gt=0, lt=1)
     drift_window: int = Field(7, ge=1, description="earlier batches pooled as each source's history")
     confidence: float = Field(0.95, gt=0, lt=1, description="level of the Wilson intervals")
+
+    @property
+    def ratio_bound(self) -> float:
+        """``max_ratio`` or its mode's default."""
+        if self.max_ratio is not None:
+            return self.max_ratio
+        return 3.0 if self.mode == "strategy_proof" else 2.0
 
     @field_validator("review_on_flags")
     @classmethod
@@ -112,6 +148,7 @@ class RoutingPolicy(_Strict):
             min_balanced_accuracy=self.min_balanced_accuracy,
             min_kappa=self.min_kappa,
             max_gain=self.max_gain,
+            max_pull=self.max_pull,
             drift_alpha=self.drift_alpha,
             confidence=self.confidence,
         )
@@ -151,7 +188,17 @@ class Config(_Strict):
             raise ValueError(f"sources listed twice: {duplicates}")
         if self.mechanism.startswith("two_rule") and self.rule_class.kind != "constant":
             raise ValueError(f"mechanism {self.mechanism!r} needs rule_class.kind 'constant'")
+        if self.mechanism == "erm" and self.routing.mode == "strategy_proof":
+            raise ValueError(
+                "mechanism 'erm' is not strategy-proof and cannot be used with routing.mode 'strategy_proof'; "
+                "choose a dictator or two-rule mechanism, or set routing.mode: guarded"
+            )
         return self
+
+    def digest(self) -> str:
+        """``sha256:`` of the canonical JSON of the validated configuration (every default filled in)."""
+        canonical = json.dumps(self.model_dump(mode="json"), sort_keys=True, separators=(",", ":"), ensure_ascii=True)
+        return "sha256:" + hashlib.sha256(canonical.encode()).hexdigest()
 
     @property
     def registry(self) -> dict[str, SourceEntry]:

@@ -4,7 +4,9 @@ Everything here is invented and generated with a fixed seed. Fourteen nights of 
 hundred reference lots each; every grader marks each lot accept (1) or reject (0).
 The cooperative's lab and most farms grade honestly with a little noise; from night 6
 ``farm-cedar`` grades as if the moisture limit were 1.5 points looser (one threshold
-rule, exactly: the shape of a best-response report); from night 8 ``farm-elm`` grades
+rule, exactly: the shape of a best-response report). It is the largest member (registry
+weight 10 of 19.5, about half the grain delivered), so under plain ERM its bent grades
+move the fitted moisture cut: its pull on the fit shows it. From night 8 ``farm-elm`` grades
 carelessly (a quarter of its grades flipped at random); on night 10 ``farm-birch``
 sends a broken file.
 """
@@ -31,7 +33,7 @@ GRADERS = [
     ("coop-lab", 3.0, 0.01),
     ("farm-alder", 2.0, 0.02),
     ("farm-birch", 1.5, 0.02),
-    ("farm-cedar", 1.5, 0.02),
+    ("farm-cedar", 10.0, 0.02),  # the largest member: about half the grain delivered
     ("farm-dunmore", 1.0, 0.02),
     ("farm-elm", 1.0, 0.02),
     ("farm-fenwick", 1.0, 0.02),
@@ -53,7 +55,7 @@ def demo_config_dict() -> dict:
         "sources": [
             {"source_id": s, "weight": w, "owner": f"grading@{s}.example"} for s, w, _ in GRADERS
         ],
-        "routing": {"min_valid_sources": 4, "max_invalid_sources": 0, "max_ratio": 2.0},
+        "routing": {"mode": "strategy_proof", "min_valid_sources": 1},
         "alerts": {"platform_address": "intake-platform@coop.example"},
     }
 

@@ -80,10 +80,19 @@ def _axis_box(width: int, height: int, inner: str, label: str) -> str:
 
 
 def scatter_disagreement_gain(sources: Sequence[Mapping]) -> str:
-    """Disagreement (x) against the lower end of the gain bracket (y), one dot per source."""
+    """Disagreement (x) against the gain bracket (y), one dot per source."""
+    return _scatter(sources, "gain_lower", "gain_upper", "gain from lying under ERM", "disagreement against gain per source")
+
+
+def scatter_disagreement_pull(sources: Sequence[Mapping]) -> str:
+    """Disagreement (x) against the pull on the consensus fit (y), one dot per source."""
+    return _scatter(sources, "pull", "pull", "pull on the fit (others' added risk)", "disagreement against pull per source")
+
+
+def _scatter(sources: Sequence[Mapping], low_key: str, high_key: str, y_label: str, label: str) -> str:
     width, height, pad = 460, 300, 44
     xs = [s["disagreement"] for s in sources] or [0.0]
-    ys = [s["gain_upper"] for s in sources] or [0.0]
+    ys = [s[high_key] for s in sources] or [0.0]
     x_max = max(0.05, max(xs) * 1.15)
     y_max = max(0.02, max(ys) * 1.15)
 
@@ -94,21 +103,21 @@ def scatter_disagreement_gain(sources: Sequence[Mapping]) -> str:
         f"<line x1='{pad}' y1='{height - pad}' x2='{width - pad}' y2='{height - pad}' stroke='#555'/>",
         f"<line x1='{pad}' y1='{pad}' x2='{pad}' y2='{height - pad}' stroke='#555'/>",
         f"<text x='{width / 2}' y='{height - 8}' text-anchor='middle' font-size='12'>disagreement with consensus</text>",
-        f"<text x='12' y='{height / 2}' transform='rotate(-90 12 {height / 2})' text-anchor='middle' font-size='12'>gain from lying under ERM</text>",
+        f"<text x='12' y='{height / 2}' transform='rotate(-90 12 {height / 2})' text-anchor='middle' font-size='12'>{_e(y_label)}</text>",
     ]
     for k in range(5):
         x, y = px(x_max * k / 4, y_max * k / 4)
         parts.append(f"<text x='{x:.1f}' y='{height - pad + 14}' font-size='10' text-anchor='middle'>{x_max * k / 4:.2f}</text>")
         parts.append(f"<text x='{pad - 4}' y='{y + 3:.1f}' font-size='10' text-anchor='end'>{y_max * k / 4:.3f}</text>")
     for s in sources:
-        x, y = px(s["disagreement"], s["gain_lower"])
-        _, y_up = px(s["disagreement"], s["gain_upper"])
+        x, y = px(s["disagreement"], s[low_key])
+        _, y_up = px(s["disagreement"], s[high_key])
         colour = "#a4532a" if s["flags"] else "#3f6e3a"
         if y_up < y:
             parts.append(f"<line x1='{x:.1f}' y1='{y:.1f}' x2='{x:.1f}' y2='{y_up:.1f}' stroke='{colour}' stroke-width='2'/>")
         parts.append(f"<circle cx='{x:.1f}' cy='{y:.1f}' r='5' fill='{colour}'/>")
         parts.append(f"<text x='{x + 7:.1f}' y='{y - 6:.1f}' font-size='11'>{_e(s['source_id'])}</text>")
-    return _axis_box(width, height, "".join(parts), "disagreement against gain per source")
+    return _axis_box(width, height, "".join(parts), label)
 
 
 def feature_plot(values: np.ndarray, accept_share: np.ndarray, feature: str, cuts: Mapping[str, float | None]) -> str:
@@ -204,7 +213,7 @@ def render_report(decision: Mapping, analysis=None, in_force_before: Mapping | N
             [
                 _e(s["source_id"]), _f(s["weight"], 3), str(s["items"]),
                 f"{_f(s['disagreement'])} [{_f(low, 3)}, {_f(high, 3)}]", _f(s["own_best_risk"]),
-                bracket + ("" if s["gain_exact"] else " (bound)"),
+                bracket + ("" if s["gain_exact"] else " (bound)"), _f(s.get("pull")),
                 f"{s['lie_weight_lower']:.1f}&ndash;{s['lie_weight_upper']:.1f}", _f(s["kappa"], 3),
                 _f(s["balanced_accuracy"], 3),
                 "".join(f"<span class='flag'>{_e(f)}</span>" for f in s["flags"]) or "&ndash;",
@@ -212,17 +221,30 @@ def render_report(decision: Mapping, analysis=None, in_force_before: Mapping | N
         )
     parts.append(
         _table(
-            ["source", "weight", "items", "disagreement [Wilson]", "own best risk", "gain under ERM", "cheapest lie (item weight)", "kappa", "balanced accuracy", "flags"],
+            ["source", "weight", "items", "disagreement [Wilson]", "own best risk", "gain under ERM", "pull on the fit", "cheapest lie (item weight)", "kappa", "balanced accuracy", "flags"],
             rows,
-            text_columns=(0, 9),
+            text_columns=(0, 10),
         )
         if rows
         else "<p>No valid source.</p>"
     )
     if decision["sources"]:
-        parts.append("<div class='pair'><div><h2 id='gain-chart'>Disagreement against gain</h2>")
+        parts.append("<div class='pair'><div><h2 id='pull-chart'>Disagreement against pull</h2>")
+        parts.append(scatter_disagreement_pull(decision["sources"]))
+        parts.append(
+            "<p><strong>Pull</strong> is how much a source's report moves the consensus fit against everyone else: "
+            "the other sources' weighted risk at the consensus minus their risk at their own ERM. A strategic "
+            "report that already won shows a large pull (often with a rule-shaped report); an honest source in "
+            "the majority shows almost none. Red dots carry flags.</p></div>"
+        )
+        parts.append("<div><h2 id='gain-chart'>Disagreement against gain</h2>")
         parts.append(scatter_disagreement_gain(decision["sources"]))
-        parts.append("<p>Bars span the gain bracket where it is a bound; red dots carry flags.</p></div></div>")
+        parts.append(
+            "<p><strong>Gain</strong> is the temptation of a source reporting as it does now, under plain ERM: how much "
+            "it could lower its own risk (judged on its own report) by reporting other labels if the consensus fit "
+            "were used. A liar whose lie already won shows gain 0; look at its pull. The lottery used here "
+            "gives no gain to anyone. Bars span the gain bracket where it is a bound.</p></div></div>"
+        )
 
     parts.append("<h2 id='lottery'>Lottery</h2>")
     if mechanism is not None:
@@ -237,15 +259,28 @@ def render_report(decision: Mapping, analysis=None, in_force_before: Mapping | N
         parts.append(
             f"<p>Expected risk <strong>{_f(mechanism['expected_risk'])}</strong>; ratio to the consensus "
             f"<strong id='ratio'>{_f(mechanism['ratio'], 4)}</strong>; worst-case guarantee {_f(mechanism['guarantee'], 4)} ({applies}). "
-            f"About <span id='items-needed'>{_e(decision['items_needed'])}</span> shared items are needed for every source's risk estimate of every rule "
-            f"to be within the configured accuracy (Hoeffding bound); this batch has {_e(decision['n_items'])}.</p>"
+            f"About <span id='items-needed'>{_e(decision['items_needed'])}</span> shared items suffice for every source's risk estimate of every rule "
+            f"to be within the configured accuracy (uniform convergence through the class's growth function); this batch has {_e(decision['n_items'])}.</p>"
         )
         parts.append("<h2 id='draw'>Draw</h2>")
         parts.append(
-            f"<p>u = <code id='draw-u'>{drawn['u']!r}</code> = HMAC-SHA256(key, \"{_e(date)}\") as a 53-bit fraction; "
+            f"<p>Draw revision <span id='draw-revision'>{_e(drawn.get('revision', 0))}</span>. "
+            f"u = <code id='draw-u'>{drawn['u']!r}</code> = HMAC-SHA256(key, \"{_e(drawn.get('message', date))}\") as a 53-bit fraction; "
             f"key fingerprint <code>{_e(drawn['key_fingerprint'])}</code> ({_e(drawn['key_source'])} key). "
-            f"Entry {drawn['index']} is the first whose cumulative probability exceeds u.</p>"
+            f"Entry {drawn['index']} is the first whose cumulative probability exceeds u. "
+            f"Configuration <code id='config-sha256'>{_e(decision.get('config_sha256'))}</code>. "
+            "The first published draw of a night stands: a re-screen with changed inputs gets the next revision, a fresh u, "
+            "and goes to review.</p>"
         )
+        earlier = decision.get("earlier_draws") or []
+        if earlier:
+            parts.append(
+                _table(
+                    ["earlier revision", "u", "drawn source", "rule", "route"],
+                    [[_e(d["revision"]), _e(d["u"]), _e(d["source_id"]) or "&ndash;", _e(rule_text(d["rule"])), _e(d["route"])] for d in earlier],
+                    text_columns=(2, 3, 4),
+                )
+            )
     parts.append("<h2 id='inputs'>Input files</h2>")
     parts.append(
         _table(

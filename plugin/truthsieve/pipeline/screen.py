@@ -17,7 +17,7 @@ import pandas as pd
 import pyarrow as pa
 
 from truthsieve import __version__
-from truthsieve.core.draw import DEMO_DRAW_KEY, DRAW_KEY_VARIABLE, draw
+from truthsieve.core.draw import DEMO_DRAW_KEY, DRAW_KEY_VARIABLE, draw, draw_message, key_fingerprint
 from truthsieve.core.incentives import SourceIncentive
 from truthsieve.exceptions import InputError
 from truthsieve.pipeline import ingest
@@ -34,6 +34,7 @@ from truthsieve.pipeline.outputs import (
     recover,
 )
 from truthsieve.pipeline.report import render_report
+from truthsieve.pipeline.revisions import draw_revision, read_published_decision
 from truthsieve.pipeline.routing import AGGREGATE, REVIEW, route_batch
 from truthsieve.pipeline.verdicts import REVIEW_NOTE, in_force_before, record_publication
 
@@ -103,7 +104,15 @@ def _number(value):
 
 
 def build_decision(
-    intake: Intake, config: Config, analysis: BatchAnalysis | None, route: str, reasons, key: str, demo_key: bool
+    intake: Intake,
+    config: Config,
+    analysis: BatchAnalysis | None,
+    route: str,
+    reasons,
+    key: str,
+    demo_key: bool,
+    revision: int = 0,
+    earlier_draws: Sequence[Mapping] = (),
 ) -> dict:
     """The contract's ``decision.json`` (plus our own extensions), as a plain dict."""
     decision = {
@@ -130,12 +139,15 @@ def build_decision(
         "errors": [e.as_dict() for e in intake.errors],
         "notes": [n.as_dict() for check in [intake.items, *intake.sources] for n in check.notes],
         "absent": absent_sources(intake, config),
+        "config_sha256": config.digest(),
+        "draw_revision": revision,
+        "earlier_draws": [dict(d) for d in earlier_draws],
         "tool_version": __version__,
     }
     if analysis is None:
         return decision
     mechanism = analysis.mechanism
-    drawn = draw([e.probability for e in mechanism.lottery], key, intake.batch_date)
+    drawn = draw([e.probability for e in mechanism.lottery], key, intake.batch_date, revision)
     entry = mechanism.lottery[drawn.index]
     decision.update(
         {
@@ -155,6 +167,8 @@ def build_decision(
             },
             "draw": {
                 "u": drawn.u,
+                "revision": revision,
+                "message": draw_message(intake.batch_date, revision),
                 "index": drawn.index,
                 "key_fingerprint": drawn.key_fingerprint,
                 "key_source": "demo" if demo_key else "environment",
@@ -195,6 +209,8 @@ def _source_entry(analysis: BatchAnalysis, s) -> dict:
         "gain_lower": incentive.gain_lower,
         "gain_upper": incentive.gain_upper,
         "gain_exact": incentive.gain_exact,
+        "pull": incentive.pull,
+        "others_rule": _rule(analysis, incentive.others_rule),
         "gain_target_rule": _rule(analysis, incentive.target_rule),
         "lie_weight_lower": incentive.lie_weight_lower,
         "lie_weight_upper": incentive.lie_weight_upper,
@@ -222,6 +238,7 @@ def sources_table(analysis: BatchAnalysis, decision: Mapping) -> pa.Table:
             disagreement_high=report.disagreement_high,
             own_best_rule=dumps_rule(entry["own_best_rule"]),
             gain_target_rule=dumps_rule(entry["gain_target_rule"]),
+            others_rule=dumps_rule(entry["others_rule"]),
             batch_date=decision["batch_date"],
         )
         rows.append(row)
@@ -243,20 +260,24 @@ def decide(
     history: Mapping,
     incentives: Sequence[SourceIncentive] | None = None,
     in_force_before: Mapping | None = None,
+    previous: Mapping | None = None,
 ) -> tuple[dict, dict[str, bytes], BatchAnalysis | None]:
     """Analyse, route and render one batch: returns (decision, output files, analysis).
 
-    ``in_force_before`` (see :func:`truthsieve.pipeline.verdicts.in_force_before`) only
-    feeds the report's "rule in force" section.
+    :param in_force_before: the rule in force before this night (see
+        :func:`truthsieve.pipeline.verdicts.in_force_before`); only the report reads it.
+    :param previous: the decision already published for this date, if any (see
+        :func:`draw_revision`).
     """
     key, demo_key = draw_key()
+    revision, earlier = draw_revision(previous, intake, config.digest(), key_fingerprint(key))
     analysis = None
     if intake.items.valid and intake.valid_sources:
         analysis = analyse_batch(intake.labels, intake.items.table, config, history, incentives)
     route, reasons = route_batch(
-        analysis, [s.source_id for s in intake.quarantined], len(intake.valid_sources), config.routing, demo_key, intake.items.valid
+        analysis, [s.source_id for s in intake.quarantined], len(intake.valid_sources), config, demo_key, intake.items.valid, revision
     )
-    decision = build_decision(intake, config, analysis, route, reasons, key, demo_key)
+    decision = build_decision(intake, config, analysis, route, reasons, key, demo_key, revision, earlier)
 
     files: dict[str, bytes] = {"decision.json": dumps_decision(decision)}
     if analysis is not None:
@@ -314,7 +335,11 @@ def screen(
     with date_lock(out, batch_date, lock_timeout):
         recover(out, batch_date)
         history = read_history(out, batch_date, config.routing.drift_window)
-        decision, files, _ = decide(intake, config, history, in_force_before=in_force_before(out, batch_date))
+        decision, files, _ = decide(
+            intake, config, history,
+            in_force_before=in_force_before(out, batch_date),
+            previous=read_published_decision(out, batch_date),
+        )
         files.update(quarantine_copies(inbox, intake))
         output = publish(out, batch_date, files)
         record_publication(out, batch_date, files["decision.json"], lock_timeout)

@@ -1,0 +1,74 @@
+"""Draw revisions: the first published draw of a night stands.
+
+``u`` is published with every decision. A re-screen of the same date (a late file, a
+resubmission, a withdrawn folder) that reused it while the lottery's membership
+changed would let a source that saw ``u`` pick the entry ``u`` selects. So:
+
+* a re-screen with the same inputs (every input file's path and sha256), the same
+  configuration (``config_sha256``) and the same key gives the same revision and a
+  byte-identical ``decision.json``;
+* a re-screen that differs, after a draw was published, becomes revision ``r + 1``:
+  its ``u`` is ``HMAC-SHA256(key, "<date>#<r+1>")`` (see :mod:`truthsieve.core.draw`),
+  the earlier draws stay listed in ``earlier_draws``, and its route is review
+  (``draw_revised``), so it applies only after a person's verdict.
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Mapping
+
+from truthsieve.pipeline.outputs import as_location
+
+
+def read_published_decision(out, batch_date: str) -> dict | None:
+    """The decision already published for ``batch_date`` under ``out``, or None."""
+    path = as_location(out) / f"batch_date={batch_date}" / "decision.json"
+    if not path.is_file():
+        return None
+    try:
+        return json.loads(path.read_text())
+    except ValueError:
+        # Unreadable: its draw may have been seen, so treat it as a published draw
+        # of unknown inputs; the re-screen becomes a new revision that needs a verdict.
+        return {"draw": {"u": None}, "draw_revision": 0, "route": None}
+
+
+def _input_digests(inputs) -> list[tuple[str, str]]:
+    return sorted((f["path"], f["sha256"]) if isinstance(f, Mapping) else (f.path, f.sha256) for f in inputs)
+
+
+def draw_revision(
+    previous: Mapping | None, intake, config_sha256: str, fingerprint: str
+) -> tuple[int, list[dict]]:
+    """(revision, earlier published draws) of tonight's draw, given the published decision.
+
+    The first published draw of a date stands. Identical inputs, configuration and key
+    give the previous revision again (so the decision is byte-identical); changed ones
+    after a published draw give the next revision, whose route is review. While no draw
+    has been published for the date (no ``u`` has been seen), the revision stays.
+    """
+    if previous is None:
+        return 0, []
+    revision = int(previous.get("draw_revision", (previous.get("draw") or {}).get("revision", 0)) or 0)
+    earlier = [dict(d) for d in previous.get("earlier_draws", [])]
+    published = previous.get("draw")
+    same = (
+        previous.get("config_sha256") == config_sha256
+        and _input_digests(previous.get("inputs", [])) == _input_digests(intake.inputs)
+        and (published is None or published.get("key_fingerprint") == fingerprint)
+    )
+    if same or published is None:
+        return revision, earlier
+    earlier.append(
+        {
+            "revision": revision,
+            "u": published.get("u"),
+            "source_id": published.get("source_id"),
+            "rule": published.get("rule"),
+            "route": previous.get("route"),
+            "config_sha256": previous.get("config_sha256"),
+            "inputs": [{"path": p, "sha256": h} for p, h in _input_digests(previous.get("inputs", []))],
+        }
+    )
+    return revision + 1, earlier
