@@ -84,10 +84,11 @@ def _smtp_hook(conn_id: str):
     """The SMTP hook, failing at once (no retry) when the connection is not defined."""
     from airflow.providers.smtp.hooks.smtp import SmtpHook
     from airflow.sdk import BaseHook
+    from airflow.sdk.exceptions import AirflowNotFoundException
 
     try:
         BaseHook.get_connection(conn_id)
-    except Exception as error:
+    except AirflowNotFoundException as error:
         raise AirflowFailException(
             f"SMTP connection {conn_id!r} is not defined (set AIRFLOW_CONN_{conn_id.upper()} or define it in Airflow), "
             "or run with the DAG param send_mail=false"

@@ -37,6 +37,7 @@ OBJECT_PUBLISH_STEPS = (
     "object_revision_written",
     "object_pointer_switched",
     "object_mirror_started",
+    "object_mirror_file_written",
     "object_mirrored",
 )
 
@@ -154,6 +155,7 @@ def mirror(folder: ObjectStoragePath, files: Mapping[str, bytes]) -> None:
     crash_point("object_mirror_started")
     for relative in sorted(set(files) - {"decision.json"}):
         write_object(folder / relative, files[relative])
+        crash_point("object_mirror_file_written")
     for relative in sorted(_files_under(folder) - set(files) - {POINTER}):
         (folder / relative).unlink()
     write_object(decision, files["decision.json"])
