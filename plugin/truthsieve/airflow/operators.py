@@ -103,8 +103,14 @@ def _items_check(inbox: str, batch_date: str, out: str, config, compute: bool = 
             raise AirflowFailException("the items table was not checked in this run (task check_items)")
         table = pd.read_parquet(pa.BufferReader(table_path.read_bytes())) if table_path.is_file() else None
         return ingest.FileCheck.from_summary(json.loads(summary_path.read_text()), table)
+    from truthsieve.pipeline.screen import validate_items
+
+    if storage.is_local(inbox) and storage.is_local(out):
+        from truthsieve.pipeline.locations import check_out_location
+
+        check_out_location(storage.local_path(inbox), storage.local_path(out))
     with storage.local_inbox(inbox, batch_date, folders=("items.parquet",)) as root:
-        check = ingest.validate_items(root, batch_date, config.rule_class.features, config.rule_class.kind == "listed")
+        check = validate_items(root, batch_date, config)
     if check.valid:
         storage.write_object(table_path, parquet_bytes(pa.Table.from_pandas(check.table, preserve_index=False)))
     storage.write_object(summary_path, json.dumps(check.summary(), sort_keys=True).encode())  # last: the marker
@@ -151,18 +157,17 @@ class ValidateSourceOperator(_BatchOperator):
         self.source_folder = source_folder
 
     def run(self, context):
-        import pandas as pd
         import pyarrow as pa
 
         from truthsieve.pipeline import ingest
         from truthsieve.pipeline.outputs import parquet_bytes
+        from truthsieve.pipeline.screen import item_index
 
         config = self.load_config()
-        items = _items_check(self.inbox, self.batch_date, self.out, config)
-        item_ids = pd.Index(items.table["item_id"].to_numpy(dtype=object), dtype=object) if items.valid else None
+        item_ids, weights = item_index(_items_check(self.inbox, self.batch_date, self.out, config))
         with storage.local_inbox(self.inbox, self.batch_date, folders=(self.source_folder,)) as root:
             folder = ingest.batch_folder(root, self.batch_date) / self.source_folder
-            check = ingest.validate_source(root, folder, config.registry, item_ids)
+            check = ingest.validate_source(root, folder, config.registry, item_ids, weights)
         work = self.work / "sources"
         if check.valid:
             storage.write_object(work / f"{self.source_folder}.parquet", parquet_bytes(pa.Table.from_pandas(check.table, preserve_index=False)))
@@ -220,6 +225,7 @@ class DecideAndPublishOperator(_BatchOperator):
         from truthsieve.pipeline.outputs import date_lock, publish, read_history, recover
         from truthsieve.pipeline.revisions import read_published_decision
         from truthsieve.pipeline.screen import decide, quarantine_copies
+        from truthsieve.pipeline.verdicts import in_force_before, record_publication
 
         config = self.load_config()
         intake = _intake(self.inbox, self.batch_date, self.out, config)
@@ -231,10 +237,10 @@ class DecideAndPublishOperator(_BatchOperator):
                 for s in sorted(c.source_id for c in intake.valid_sources)
             ]
 
-        def decide_and_collect(out_location):
+        def decide_and_collect(out_location, in_force=None):
             history = read_history(out_location, self.batch_date, config.routing.drift_window)
             previous = read_published_decision(out_location, self.batch_date)
-            decision, files, _ = decide(intake, config, history, incentives, previous=previous)
+            decision, files, _ = decide(intake, config, history, incentives, in_force_before=in_force, previous=previous)
             files.update(quarantine_copies(storage.location(self.inbox), intake))
             return decision, files
 
@@ -243,8 +249,9 @@ class DecideAndPublishOperator(_BatchOperator):
             out.mkdir(parents=True, exist_ok=True)
             with date_lock(out, self.batch_date):
                 recover(out, self.batch_date)
-                decision, files = decide_and_collect(out)
+                decision, files = decide_and_collect(out, in_force_before(out, self.batch_date))
                 output = publish(out, self.batch_date, files)
+                record_publication(out, self.batch_date, files["decision.json"])
             write_index(out)
         else:
             # Object stores have no cross-process lock: the DAG's one active run is the writer.
