@@ -19,7 +19,13 @@ _CORE_NAMES = (
 __all__ = [*_CORE_NAMES, "TruthsieveError", "__version__"]
 
 
+# Functions named like their submodule: taken from the submodule, not the core package.
+_SAME_NAME_AS_MODULE = ("draw", "incentives")
+
+
 def __getattr__(name: str):
+    if name in _SAME_NAME_AS_MODULE:
+        return getattr(importlib.import_module(f"truthsieve.core.{name}"), name)
     if name in _CORE_NAMES:
         return getattr(importlib.import_module("truthsieve.core"), name)
     if name == "TruthsieveError":

@@ -35,14 +35,6 @@ class MechanismError(InputError):
     """The mechanism does not exist or does not apply to the rule class."""
 
 
-class ValidationError(InputError):
-    """One or more input files broke the batch's schema or rules; ``records`` lists each problem."""
-
-    def __init__(self, message: str, records: list | None = None) -> None:
-        super().__init__(message)
-        self.records = list(records or [])
-
-
 class ConfigError(InputError):
     """The configuration file is missing, unreadable or invalid."""
 

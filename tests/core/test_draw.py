@@ -6,7 +6,7 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from truthsieve.core import draw, inverse_cdf, key_fingerprint, uniform_from_date
+from truthsieve.core.draw import draw, inverse_cdf, key_fingerprint, uniform_from_date
 
 
 def test_uniform_uses_hmac_sha256_with_key_and_date_in_that_order():

@@ -11,7 +11,8 @@ from core_support import FEATURES, core_objects
 from oracle import exhaustive_erm_gain, rng_instance
 from strategies import instances
 from test_mechanisms import manipulable_instance
-from truthsieve.core import fit_consensus, incentives, source_incentive
+from truthsieve.core import fit_consensus, source_incentive
+from truthsieve.core.incentives import incentives
 
 
 def analyse(instance, kind, budget=None):

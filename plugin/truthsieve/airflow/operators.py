@@ -11,6 +11,7 @@ Nothing heavy is imported until ``execute`` runs.
 from __future__ import annotations
 
 import json
+import os
 from collections.abc import Sequence
 
 from airflow.sdk import BaseOperator
@@ -224,7 +225,7 @@ class DecideAndPublishOperator(_BatchOperator):
         from truthsieve.pipeline.cli import write_index
         from truthsieve.pipeline.outputs import date_lock, publish, read_history, recover
         from truthsieve.pipeline.revisions import read_published_decision
-        from truthsieve.pipeline.screen import decide, quarantine_copies
+        from truthsieve.pipeline.screen import decide, draw_key_from_environment, quarantine_copies
         from truthsieve.pipeline.verdicts import in_force_before, record_publication
 
         config = self.load_config()
@@ -240,7 +241,10 @@ class DecideAndPublishOperator(_BatchOperator):
         def decide_and_collect(out_location, in_force=None):
             history = read_history(out_location, self.batch_date, config.routing.drift_window)
             previous = read_published_decision(out_location, self.batch_date)
-            decision, files, _ = decide(intake, config, history, incentives, in_force_before=in_force, previous=previous)
+            decision, files, _ = decide(
+                intake, config, history, incentives, in_force_before=in_force, previous=previous,
+                draw_key=draw_key_from_environment(os.environ),
+            )
             files.update(quarantine_copies(storage.location(self.inbox), intake))
             return decision, files
 

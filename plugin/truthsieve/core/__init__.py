@@ -1,7 +1,12 @@
-"""The pure computational core: labels, rule classes, mechanisms, incentives, reliability."""
+"""The pure computational core: labels, rule classes, mechanisms, incentives, reliability.
 
-from truthsieve.core.draw import Draw, draw, inverse_cdf, key_fingerprint, uniform_from_date
-from truthsieve.core.incentives import SourceIncentive, incentives, source_incentive
+Functions that share a submodule's name (``draw.draw``, ``incentives.incentives``) are not
+re-exported here, so ``truthsieve.core.draw`` and ``truthsieve.core.incentives`` stay the
+modules; the package root ``truthsieve`` offers them by name.
+"""
+
+from truthsieve.core.draw import Draw, inverse_cdf, key_fingerprint, uniform_from_date
+from truthsieve.core.incentives import SourceIncentive, source_incentive
 from truthsieve.core.labels import LabelMatrix, build_label_matrix, report_costs
 from truthsieve.core.mechanisms import (
     MECHANISMS,
@@ -29,9 +34,7 @@ __all__ = [
     "ThresholdRules",
     "build_label_matrix",
     "build_rule_class",
-    "draw",
     "fit_consensus",
-    "incentives",
     "inverse_cdf",
     "key_fingerprint",
     "own_best_rules",

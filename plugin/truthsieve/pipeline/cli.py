@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import datetime as dt
 import json
+import os
 import sys
 from collections.abc import Sequence
 from pathlib import Path
@@ -125,7 +126,7 @@ def _check_features(inbox: Path, dates: Sequence[str], config) -> None:
 
 def backfill(inbox: Path, dates: Sequence[str], config_path: Path | None, out: Path, lock_timeout: float, config=None) -> int:
     from truthsieve.pipeline.config import load_config
-    from truthsieve.pipeline.screen import screen
+    from truthsieve.pipeline.screen import draw_key_from_environment, screen
 
     config = config or load_config(config_path)
     check_out_location(inbox, out)
@@ -137,7 +138,7 @@ def backfill(inbox: Path, dates: Sequence[str], config_path: Path | None, out: P
     results = []
     for k, date in enumerate(present):
         _progress(k, len(present), date)
-        results.append(screen(inbox, date, config, out, lock_timeout))
+        results.append(screen(inbox, date, config, out, lock_timeout, draw_key=draw_key_from_environment(os.environ)))
     _progress(len(present), len(present), "done")
     index = write_index(out)
     routes = [r.route for r in results]
@@ -155,13 +156,13 @@ def backfill(inbox: Path, dates: Sequence[str], config_path: Path | None, out: P
 def run(argv: Sequence[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     from truthsieve.pipeline.config import load_config
-    from truthsieve.pipeline.screen import screen
+    from truthsieve.pipeline.screen import draw_key_from_environment, screen
 
     if args.command == "screen":
         config = load_config(args.config)
         check_out_location(args.inbox, args.out)
         _check_features(args.inbox, [args.date], config)
-        result = screen(args.inbox, args.date, config, args.out, args.lock_timeout)
+        result = screen(args.inbox, args.date, config, args.out, args.lock_timeout, draw_key=draw_key_from_environment(os.environ))
         write_index(args.out)
         print(json.dumps(result.decision, sort_keys=True, indent=2) if args.json else summary(result.decision, result.output))
         return EXIT_OK

@@ -7,7 +7,6 @@ screened either way gives the same ``decision.json`` byte for byte.
 from __future__ import annotations
 
 import json
-import os
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -69,10 +68,18 @@ class Intake:
         return [f for check in [self.items, *self.sources] for f in check.inputs]
 
 
-def draw_key() -> tuple[str, bool]:
-    """(key, is_demo_key): the secret from the environment, or the public demo key."""
-    key = os.environ.get(DRAW_KEY_VARIABLE)
-    return (key, False) if key else (DEMO_DRAW_KEY, True)
+#: (key, is_demo_key) of the public demo key, used when an edge passes no secret.
+DEMO_KEY = (DEMO_DRAW_KEY, True)
+
+
+def draw_key_from_environment(environ: Mapping[str, str]) -> tuple[str, bool]:
+    """(key, is_demo_key): the secret in ``TRUTHSIEVE_DRAW_KEY``, or the public demo key.
+
+    Only the edges (the command line, the Airflow operator) call this and pass the key
+    down; nothing below them reads the environment.
+    """
+    key = environ.get(DRAW_KEY_VARIABLE)
+    return (key, False) if key else DEMO_KEY
 
 
 def ingest_batch(inbox: str | Path, batch_date: str, config: Config) -> Intake:
@@ -274,6 +281,8 @@ def decide(
     incentives: Sequence[SourceIncentive] | None = None,
     in_force_before: Mapping | None = None,
     previous: Mapping | None = None,
+    *,
+    draw_key: tuple[str, bool] = DEMO_KEY,
 ) -> tuple[dict, dict[str, bytes], BatchAnalysis | None]:
     """Analyse, route and render one batch: returns (decision, output files, analysis).
 
@@ -281,8 +290,9 @@ def decide(
         :func:`truthsieve.pipeline.verdicts.in_force_before`); only the report reads it.
     :param previous: the decision already published for this date, if any (see
         :func:`draw_revision`).
+    :param draw_key: (secret, is_demo_key) from :func:`draw_key_from_environment`.
     """
-    key, demo_key = draw_key()
+    key, demo_key = draw_key
     revision, earlier = draw_revision(previous, intake, config.digest(), key_fingerprint(key))
     analysis = None
     if intake.items.valid and intake.valid_sources:
@@ -340,9 +350,15 @@ class ScreenResult:
 
 
 def screen(
-    inbox: str | Path, batch_date: str, config: Config, out: str | Path, lock_timeout: float = 600.0
+    inbox: str | Path,
+    batch_date: str,
+    config: Config,
+    out: str | Path,
+    lock_timeout: float = 600.0,
+    *,
+    draw_key: tuple[str, bool] = DEMO_KEY,
 ) -> ScreenResult:
-    """Screen one night and publish its outputs atomically."""
+    """Screen one night and publish its outputs atomically (``draw_key`` as in :func:`decide`)."""
     intake = ingest_batch(inbox, batch_date, config)
     Path(out).mkdir(parents=True, exist_ok=True)
     with date_lock(out, batch_date, lock_timeout):
@@ -352,6 +368,7 @@ def screen(
             intake, config, history,
             in_force_before=in_force_before(out, batch_date),
             previous=read_published_decision(out, batch_date),
+            draw_key=draw_key,
         )
         files.update(quarantine_copies(inbox, intake))
         output = publish(out, batch_date, files)
