@@ -54,10 +54,12 @@ def nights(tmp_path_factory):
     for inbox, bend in ((old, None), (new, {"south": 15.0})):
         write_batch(inbox, DATE, seed=5, bend=bend)
         write_batch(inbox, NEXT, seed=6)
+    # The new version is a re-screen of a published night (a revision of its draw), so its
+    # reference is screened after the old one, exactly as the crashed runs are.
     references = {}
-    for name, inbox in (("old", old), ("new", new)):
+    for name, runs in (("old", [(old, DATE)]), ("new", [(old, DATE), (new, DATE)])):
         out = root / f"ref-{name}"
-        for date in (DATE, NEXT):
+        for inbox, date in [*runs, (runs[-1][0], NEXT)]:
             assert cli(*screen_args(inbox, config, out, date)).returncode == 0
         references[name] = {d: visible_state(out / f"batch_date={d}") for d in (DATE, NEXT)}
     assert references["old"][DATE] != references["new"][DATE]
