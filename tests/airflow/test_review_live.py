@@ -78,6 +78,11 @@ def test_approve_puts_the_drawn_rule_in_force_and_a_repeat_is_idempotent(tmp_pat
     assert json.loads((out / "in_force.json").read_text()) == state
     _verify(out)
 
+    from truthsieve.airflow.review import published_rule
+
+    extra = published_rule(str(out), NIGHT, "review")  # the asset event's extra: the verdict's line
+    assert (extra["rule"], extra["seq"], extra["by"], extra["status"], extra["in_force"]) == (night["draw"]["rule"], verdict["seq"], "ana", "approved", True)
+
     # The same answer again (a retried task): nothing appended, the same rule in force.
     assert _recorder(out, _answer("Approve")).execute({}) == state
     assert len(_ledger(out)) == len(lines)
@@ -135,6 +140,37 @@ def test_the_review_task_asks_about_the_night_and_a_timeout_cannot_approve(tmp_p
     task = DagBag(dag_folder=str(REPO / "dags")).dags[DAG_ID].get_task("review_night")
     assert task.options == ["Approve", "Reject"] and task.defaults is None  # a timeout fails, never approves
     assert 0 < task.response_timeout.total_seconds() < 24 * 3600 and task.retries == 0
+
+
+def test_an_aggregated_night_skips_the_review_and_still_announces_its_rule(airflow_db, tmp_path):
+    import datetime as dt
+
+    from airflow.dag_processing.dagbag import DagBag
+    from airflow.models.asset import AssetEvent, AssetModel
+    from airflow.utils.session import create_session
+    from inboxes import write_batch, write_config
+
+    inbox, out = tmp_path / "inbox", tmp_path / "out"
+    write_batch(inbox, NIGHT, seed=5)
+    dag = DagBag(dag_folder=str(REPO / "dags")).dags[DAG_ID]
+    for task in dag.tasks:
+        task.retries = 0
+    run = dag.test(
+        logical_date=dt.datetime.fromisoformat(NIGHT).replace(tzinfo=dt.timezone.utc),
+        run_conf={"inbox": str(inbox), "out": str(out), "config": str(write_config(tmp_path / "c.yaml")), "send_mail": False},
+    )
+    states = {ti.task_id: ti.state for ti in run.get_task_instances()}
+    assert run.state == "success" and (states["review_night"], states["record_verdict"], states["announce_aggregate"]) == ("skipped", "skipped", "success"), states
+    decision = json.loads((out / f"batch_date={NIGHT}" / "decision.json").read_text())
+    published = next(e for e in _ledger(out) if e["event"] == "night_published")
+    with create_session() as session:
+        events = (
+            session.query(AssetEvent).join(AssetModel, AssetEvent.asset_id == AssetModel.id)
+            .filter(AssetModel.name == "truthsieve_published_aggregate", AssetEvent.source_run_id == run.run_id).all()
+        )
+        extras = [e.extra for e in events]
+    assert len(extras) == 1 and extras[0]["rule"] == decision["draw"]["rule"] and extras[0]["seq"] == published["seq"], extras
+    assert (extras[0]["status"], extras[0]["by"], extras[0]["in_force"]) == ("aggregated", None, True)
 
 
 @pytest.mark.slow
