@@ -82,6 +82,7 @@ def test_approve_puts_the_drawn_rule_in_force_and_a_repeat_is_idempotent(tmp_pat
 
     extra = published_rule(str(out), NIGHT, "review")  # the asset event's extra: the verdict's line
     assert (extra["rule"], extra["seq"], extra["by"], extra["status"], extra["in_force"]) == (night["draw"]["rule"], verdict["seq"], "ana", "approved", True)
+    assert published_rule(str(out), EARLIER, "aggregate")["in_force"] is False  # the later approved night wins
 
     # The same answer again (a retried task): nothing appended, the same rule in force.
     assert _recorder(out, _answer("Approve")).execute({}) == state
