@@ -1,4 +1,4 @@
-"""The Airflow shell: operators over the pipeline, and the plugin (macros only)."""
+"""The Airflow shell: operators over the pipeline, the review-night recorder, and the plugin (macros only)."""
 
 from truthsieve.airflow.alerting import SendAlertsOperator
 from truthsieve.airflow.operators import (
@@ -8,11 +8,13 @@ from truthsieve.airflow.operators import (
     SourceIncentiveOperator,
     ValidateSourceOperator,
 )
+from truthsieve.airflow.review import RecordVerdictOperator
 
 __all__ = [
     "CheckItemsOperator",
     "DecideAndPublishOperator",
     "FitConsensusOperator",
+    "RecordVerdictOperator",
     "SendAlertsOperator",
     "SourceIncentiveOperator",
     "ValidateSourceOperator",
