@@ -18,6 +18,7 @@ import contextlib
 import glob
 import os
 import re
+import shlex
 import shutil
 import signal
 import socket
@@ -115,16 +116,10 @@ def redis_server(binary: str, root: Path, timeout: float = 60) -> Iterator[int]:
 
 def _as_postgres(argv: list[str], timeout: float) -> subprocess.CompletedProcess:
     if os.geteuid() == 0:
-        argv = ["su", "postgres", "-s", "/bin/sh", "-c", " ".join(_quote(a) for a in argv)]
+        argv = ["su", "postgres", "-s", "/bin/sh", "-c", " ".join(shlex.quote(a) for a in argv)]
     result = subprocess.run(argv, capture_output=True, text=True, timeout=timeout)
     assert result.returncode == 0, (argv, result.stdout[-2000:], result.stderr[-2000:])
     return result
-
-
-def _quote(arg: str) -> str:
-    import shlex
-
-    return shlex.quote(arg)
 
 
 @contextlib.contextmanager
