@@ -27,7 +27,7 @@ bench: setup
 	$(PYTHON) bench/run.py
 
 lock:
-	python3 -m uv pip compile pyproject.toml --extra airflow --extra test -p 3.11 -o requirements.lock
+	python3 -m uv pip compile pyproject.toml --extra airflow --extra celery --extra test -p 3.11 -o requirements.lock
 
 clean:
 	rm -rf $(VENV) out .pytest_cache .hypothesis

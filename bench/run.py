@@ -144,16 +144,102 @@ def measure_apply(n_items: int, repeat: int) -> dict:
     return {"items": n_items, "seconds": {k: statistics.median(v) for k, v in times.items()}}
 
 
+def make_many_sources_inbox(folder: Path, n_sources: int, n_items: int, seed: int = 7) -> dict:
+    """``n_sources`` sources each labelling every one of ``n_items`` items (one night)."""
+    rng = np.random.default_rng(seed)
+    batch = folder / "batch_date=2026-01-01"
+    batch.mkdir(parents=True, exist_ok=True)
+    f0, f1 = np.round(rng.normal(0, 1, n_items), 3), np.round(rng.normal(0, 1, n_items), 3)
+    ids = pa.array([f"i{k:08d}" for k in range(n_items)])
+    pq.write_table(pa.table({"item_id": ids, "f0": f0, "f1": f1}), batch / "items.parquet")
+    truth = f0 + 0.3 * f1 > 0
+    for s in range(n_sources):
+        labels = truth ^ (rng.random(n_items) < 0.02 + 0.1 * (s % 5) / 5)
+        (batch / f"source_id=s{s:04d}").mkdir()
+        pq.write_table(pa.table({"item_id": ids, "label": labels}), batch / f"source_id=s{s:04d}" / "labels.parquet")
+    return {
+        "rule_class": {"kind": "threshold", "features": ["f0", "f1"]},
+        "mechanism": "tuned_dictator",
+        "sources": [{"source_id": f"s{s:04d}", "weight": 1.0 + s % 3} for s in range(n_sources)],
+    }
+
+
+def measure_many_sources(n_sources: int, n_items: int, sample: int) -> dict:
+    """Runs inside the child process: one night through the DAG's own operators, called in
+    process (``run``), as each mapped task would on a worker. Every validate_source task is
+    timed; ``sample`` source_incentive tasks (evenly spread) are timed and their median
+    stands for the rest. The whole night is the sum of its tasks; the CLI's one-process
+    screen of the same night is timed beside it."""
+    import yaml
+
+    from truthsieve.airflow.operators import CheckItemsOperator, FitConsensusOperator, SourceIncentiveOperator, ValidateSourceOperator
+    from truthsieve.pipeline.config import Config
+    from truthsieve.pipeline.outputs import publish
+    from truthsieve.pipeline.screen import decide, ingest_batch
+
+    with tempfile.TemporaryDirectory() as tmp:
+        inbox, out = Path(tmp) / "inbox", Path(tmp) / "out"
+        raw = make_many_sources_inbox(inbox, n_sources, n_items)
+        (Path(tmp) / "config.yaml").write_text(yaml.safe_dump(raw))
+        paths = {"inbox": str(inbox), "batch_date": "2026-01-01", "config_path": str(Path(tmp) / "config.yaml"), "out": str(out)}
+
+        def timed(call):
+            start = time.perf_counter()
+            call()
+            return time.perf_counter() - start
+
+        check = timed(lambda: CheckItemsOperator(task_id="check_items", **paths).run({}))
+        validate = [timed(lambda s=s: ValidateSourceOperator(task_id="v", source_folder=f"source_id=s{s:04d}", **paths).run({})) for s in range(n_sources)]
+        fit = timed(lambda: FitConsensusOperator(task_id="fit_consensus", **paths).run({}))
+        picks = np.linspace(0, n_sources - 1, sample).round().astype(int)
+        incentive = [timed(lambda s=s: SourceIncentiveOperator(task_id="i", source_id=f"s{s:04d}", **paths).run({})) for s in picks]
+        config = Config.model_validate(raw)
+        cli_screen = timed(lambda: publish(out / "cli", "2026-01-01", decide(ingest_batch(inbox, "2026-01-01", config), config, {})[1]))
+    per_source = statistics.median(validate) + statistics.median(incentive)
+    night = check + sum(validate) + fit + n_sources * statistics.median(incentive)
+    return {
+        "sources": n_sources,
+        "labels": n_sources * n_items,
+        "seconds": {
+            "check_items": check,
+            "validate_source_median": statistics.median(validate),
+            "fit_consensus": fit,
+            "source_incentive_median": statistics.median(incentive),
+            "per_source_steps": per_source,
+            "night_of_tasks": night,
+            "cli_screen": cli_screen,
+        },
+        "per_source_over_night": per_source / night,
+        "incentive_sample": int(sample),
+    }
+
+
+def many_sources_row(repeat: int, n_sources: int = 1000, n_items: int = 1000) -> dict:
+    """The many-sources row (1,000 sources x 1,000 items = 1M labels) in its own child."""
+    sample = max(3, repeat)
+    out = subprocess.run([sys.executable, __file__, "--many-sources-child", str(n_sources), str(n_items), str(sample)], capture_output=True, text=True, check=True)
+    row = json.loads(out.stdout.strip().splitlines()[-1])
+    s = row["seconds"]
+    print(f"{'many' + str(n_sources):>10}: per source {s['per_source_steps']:.2f}s (validate {s['validate_source_median']:.3f}s, "
+          f"incentive {s['source_incentive_median']:.2f}s), fit {s['fit_consensus']:.2f}s, night of tasks {s['night_of_tasks']:.0f}s, "
+          f"CLI screen {s['cli_screen']:.2f}s")
+    return row
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--large", action="store_true", help="also run 10M labels")
     parser.add_argument("--repeat", type=int, default=3)
     parser.add_argument("--child", nargs=2, type=int, help=argparse.SUPPRESS)
     parser.add_argument("--apply-child", type=int, help=argparse.SUPPRESS)
+    parser.add_argument("--many-sources-child", nargs=3, type=int, help=argparse.SUPPRESS)
     parser.add_argument("--json", type=Path, default=ROOT / "bench" / "results" / "latest.json")
     args = parser.parse_args()
     if args.child:
         print(json.dumps(measure(args.child[0], args.child[1], args.repeat)))
+        return
+    if args.many_sources_child:
+        print(json.dumps(measure_many_sources(*args.many_sources_child)))
         return
     if args.apply_child:
         print(json.dumps(measure_apply(args.apply_child, args.repeat)))
@@ -173,6 +259,7 @@ def main() -> None:
     figures["apply1M"] = json.loads(out.stdout.strip().splitlines()[-1])
     s = figures["apply1M"]["seconds"]
     print(f"{'apply1M':>10}: apply {s['apply']:.2f}s, Parquet read + write floor {s['parquet_floor']:.2f}s")
+    figures["many1000x1000"] = many_sources_row(args.repeat)
     one = figures["1M"]["seconds"]
     ratios = {
         "full_over_bare_load_1M": one["full_screen"] / one["bare_load"],

@@ -73,6 +73,8 @@ class LiveStack:
     env: dict[str, str]
     logs: Path
     processes: dict[str, subprocess.Popen] = field(default_factory=dict)
+    commands: dict[str, tuple[str, ...]] = field(default_factory=dict)  # component -> argv after `airflow`
+    component_env: dict[str, dict[str, str]] = field(default_factory=dict)  # component -> its own extra env
     _token: str | None = None
 
     def airflow(self, *args: str, timeout: float = 300, check: bool = True) -> subprocess.CompletedProcess:
@@ -127,8 +129,9 @@ class LiveStack:
 
     def start(self, name: str, *args: str) -> subprocess.Popen:
         handle = open(self.logs / f"{name}.log", "w")
+        argv = self.commands.get(name) or (name, *args)
         process = subprocess.Popen(
-            [AIRFLOW, name, *args], env=self.env, stdout=handle, stderr=subprocess.STDOUT, start_new_session=True
+            [AIRFLOW, *argv], env={**self.env, **self.component_env.get(name, {})}, stdout=handle, stderr=subprocess.STDOUT, start_new_session=True
         )
         handle.close()
         self.processes[name] = process
@@ -180,6 +183,9 @@ def live_stack(
     components: tuple[str, ...] = COMPONENTS,
     health_timeout: float = 240,
     retry_delay_s: int = 2,
+    port: int | None = None,
+    commands: dict[str, tuple[str, ...]] | None = None,
+    component_env: dict[str, dict[str, str]] | None = None,
 ) -> Iterator[LiveStack]:
     """A running stack under ``root`` (its home, logs and DB), stopped on exit.
 
@@ -187,12 +193,24 @@ def live_stack(
     backfill while SQLite has a single writer); the API server, polled on
     ``GET /api/v2/monitor/health`` for at most ``health_timeout`` seconds; then the other
     components. Tasks therefore never start before the execution API answers.
+
+    ``port`` fixes the API port (default: a free one). ``commands`` maps a component name to
+    its argv after ``airflow`` (default: ``airflow NAME``), so components such as
+    ``worker-1: ("celery", "worker", ...)`` can run; ``component_env`` adds a component's own
+    variables over ``stack.env``. ``extra_env`` may replace the SQLite database (e.g. Postgres).
     """
     home, logs = root / "airflow-home", root / "airflow-logs"
     home.mkdir(parents=True, exist_ok=True)
     logs.mkdir(parents=True, exist_ok=True)
-    port = free_port()
-    stack = LiveStack(home=home, base_url=f"http://127.0.0.1:{port}", env=stack_env(home, port, extra_env, retry_delay_s), logs=logs)
+    port = port or free_port()
+    stack = LiveStack(
+        home=home,
+        base_url=f"http://127.0.0.1:{port}",
+        env=stack_env(home, port, extra_env, retry_delay_s),
+        logs=logs,
+        commands=dict(commands or {}),
+        component_env=dict(component_env or {}),
+    )
     stack.airflow("db", "migrate")
     if before_services is not None:
         before_services(stack)
