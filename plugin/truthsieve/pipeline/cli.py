@@ -187,7 +187,7 @@ def run(argv: Sequence[str] | None = None) -> int:
     if code == EXIT_OK:
         from truthsieve.pipeline.ledger_cli import finish_demo
 
-        finish_demo(args.out)
+        finish_demo(args.out, inbox)
     return code
 
 
