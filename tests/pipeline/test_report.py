@@ -51,7 +51,7 @@ def test_report_has_every_section_and_the_decisions_numbers(screened):
     _, batch, decision = screened
     page = Collector()
     page.feed((batch / "report.html").read_text())
-    for section in ("route", "reasons", "rules", "feature-plot", "sources", "gain-chart", "lottery", "draw", "inputs"):
+    for section in ("route", "summary", "decided", "in-force-now", "next-step", "who-pulled", "reasons", "rules", "feature-plot", "sources", "pull-chart", "history", "lottery", "draw", "inputs", "to-index"):
         assert section in page.ids, section
     assert page.ids["route"] == decision["route"]
     assert float(page.ids["ratio"]) == pytest.approx(decision["mechanism"]["ratio"], abs=5e-5)

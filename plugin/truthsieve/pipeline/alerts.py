@@ -99,7 +99,7 @@ def compose_alerts(decision: Mapping, config: Config, history: Mapping | None = 
         if not owner:
             continue
         body, markup = _render([*concerned[source_id], *_footer(decision, config, report)])
-        what = ", ".join(FLAG_NAMES[c] for s in decision["sources"] if s["source_id"] == source_id for c in s["flags"])
+        what = ", ".join(f"{FLAG_NAMES[c]} ({c})" for s in decision["sources"] if s["source_id"] == source_id for c in s["flags"])
         kind = what or ("quarantined" if any(q["source_id"] == source_id for q in decision["quarantined"]) else "absent")
         messages.append(
             {"kind": "source", "source_id": source_id, "to": [owner], "subject": f"[truthsieve] {date}: {source_id}: {kind}", "body": body, "html": markup}
