@@ -17,9 +17,9 @@ PALETTE = {
     "paper": "#fdfcf8",  # page
     "panel": "#ffffff",  # tables, charts
     "line": "#c9ced6",  # rules and borders
-    "calm": "#1f5f99",  # aggregated, unflagged: a deep blue
+    "calm": "#174a7c",  # aggregated, unflagged: a deep blue
     "calm_wash": "#e4eef8",
-    "heed": "#e08a1e",  # review, flagged: an amber, much lighter than the blue
+    "heed": "#f0a030",  # review, flagged: an amber, much lighter than the blue
     "heed_wash": "#fbeed9",
     "heed_ink": "#8a4b00",  # amber text dark enough to read on paper
     "faint": "#7a828e",  # absent, no data
