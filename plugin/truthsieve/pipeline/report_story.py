@@ -51,9 +51,9 @@ def story(decisions: Sequence[Mapping], ledger_entries: Sequence[Mapping] = ()) 
             drawn = [x for x, _ in pulled if (x["draw"] or {}).get("source_id") == source]
             shaped = [x["batch_date"] for x, y in pulled if "rule_shaped" in y["flags"]]
             lines.append(
-                f"{source}'s grades moved the plain ERM fit on {_nights(len(pulled))} ({spans([x['batch_date'] for x, _ in pulled])}); "
-                f"its largest pull was {s['pull']:.4f} on {d['batch_date']}, where plain ERM would have published {rule_text(d['consensus']['rule'])} "
-                f"while the other members alone fit {rule_text(s['others_rule'])}."
+                f"{source}'s grades made the difference to the plain ERM fit on {_nights(len(pulled))} ({spans([x['batch_date'] for x, _ in pulled])}): "
+                f"on {d['batch_date']}, with them plain ERM would publish {rule_text(d['consensus']['rule'])}, without them {rule_text(s['others_rule'])}; "
+                f"its pull there (the error its grades add for the other members) was {s['pull']:.4f}, its largest."
                 + (f" Its grades matched a single cut on {_nights(len(shaped))} of them." if shaped else "")
                 + f" The lottery drew its rule on {_nights(len(drawn))} of them: its chance of being drawn follows its registry weight, not its grades."
             )
@@ -77,9 +77,9 @@ def story(decisions: Sequence[Mapping], ledger_entries: Sequence[Mapping] = ()) 
             first = mine[0] if mine else None
             where = f"; first: {first.get('code', first['rule'])} in {first['file']}, row {first['row'] or '-'}" if first else ""
             lines.append(f"On {d['batch_date']} {q['source_id'] or 'the items table'}'s delivery was quarantined ({len(mine)} problem(s){where}).")
-        for a in d.get("absent", []):
-            if a.get("why") == "no_folder":
-                lines.append(f"On {d['batch_date']} {a['source_id']} delivered nothing (absent).")
+        gone = [a["source_id"] for a in d.get("absent", []) if a.get("why") == "no_folder"]
+        if gone:
+            lines.append(f"On {d['batch_date']} {', '.join(gone)} delivered nothing (absent): {len(d['sources'])} valid source(s) that night.")
     state = nights(ledger_entries)
     for d in decisions:
         if d["route"] != "review":
