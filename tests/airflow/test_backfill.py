@@ -3,16 +3,12 @@
 from __future__ import annotations
 
 import json
-import os
-import socket
-import subprocess
 import sys
-import time
-from pathlib import Path
 
 import pytest
 
 from conftest import REPO
+from live_stack import free_port, live_stack
 
 pytestmark = [pytest.mark.airflow, pytest.mark.slow]
 
@@ -20,14 +16,10 @@ DATES = ["2026-11-02", "2026-11-03", "2026-11-04"]
 DAG_ID = "truthsieve_nightly"
 
 
-def free_port() -> int:
-    with socket.socket() as probe:
-        probe.bind(("127.0.0.1", 0))
-        return probe.getsockname()[1]
-
-
 def test_backfill_of_three_nights_matches_the_cli_backfill(tmp_path):
     sys.path.insert(0, str(REPO / "tests" / "pipeline"))
+    from aiosmtpd.controller import Controller
+    from aiosmtpd.handlers import Sink
     from inboxes import cli, write_batch, write_config
 
     inbox, config = tmp_path / "inbox", write_config(tmp_path / "c.yaml")
@@ -37,24 +29,10 @@ def test_backfill_of_three_nights_matches_the_cli_backfill(tmp_path):
     done = cli("backfill", "--inbox", str(inbox), "--from", DATES[0], "--to", DATES[-1], "--config", str(config), "--out", str(cli_out))
     assert done.returncode == 0, done.stderr
 
-    from aiosmtpd.controller import Controller
-    from aiosmtpd.handlers import Sink
-
     smtp_port = free_port()
     smtp = Controller(Sink(), hostname="127.0.0.1", port=smtp_port)
     smtp.start()
-    home = tmp_path / "airflow-home"
-    port = free_port()
-    env = {
-        **os.environ,
-        "AIRFLOW_HOME": str(home),
-        "AIRFLOW__DATABASE__SQL_ALCHEMY_CONN": f"sqlite:///{home}/airflow.db",
-        "AIRFLOW__CORE__DAGS_FOLDER": str(REPO / "dags"),
-        "AIRFLOW__CORE__LOAD_EXAMPLES": "False",
-        "AIRFLOW__CORE__PARALLELISM": "4",
-        "AIRFLOW__API__PORT": str(port),
-        "AIRFLOW__CORE__EXECUTION_API_SERVER_URL": f"http://127.0.0.1:{port}/execution/",
-        "AIRFLOW__SCHEDULER__SCHEDULER_HEARTBEAT_SEC": "1",
+    extra_env = {
         "AIRFLOW_CONN_SMTP_DEFAULT": json.dumps(
             {"conn_type": "smtp", "host": "127.0.0.1", "port": smtp_port, "extra": {"disable_ssl": True, "disable_tls": True, "timeout": 10, "retry_limit": 0}}
         ),
@@ -62,44 +40,24 @@ def test_backfill_of_three_nights_matches_the_cli_backfill(tmp_path):
         "TRUTHSIEVE_OUT": str(airflow_out),
         "TRUTHSIEVE_CONFIG": str(config),
     }
-    airflow = str(Path(sys.executable).with_name("airflow"))
 
-    def run(*args: str) -> subprocess.CompletedProcess:
-        result = subprocess.run([airflow, *args], env=env, capture_output=True, text=True, timeout=180)
-        assert result.returncode == 0, result.stderr[-3000:]
-        return result
+    def queue_backfill(stack):
+        # Queued before the services start: SQLite allows one writer at a time.
+        stack.airflow("dags", "reserialize")
+        stack.airflow("dags", "unpause", DAG_ID)
+        stack.airflow("backfill", "create", "--dag-id", DAG_ID, "--from-date", DATES[0], "--to-date", DATES[-1], "--max-active-runs", "1")
 
-    run("db", "migrate")
-    run("dags", "reserialize")
-    # Queue the backfill before the services start: SQLite allows one writer at a time.
-    run("dags", "unpause", DAG_ID)
-    run("backfill", "create", "--dag-id", DAG_ID, "--from-date", DATES[0], "--to-date", DATES[-1], "--max-active-runs", "1")
-    logs = tmp_path / "logs"
-    logs.mkdir()
-    services = [
-        subprocess.Popen([airflow, name, *extra], env=env, stdout=open(logs / f"{name}.log", "w"), stderr=subprocess.STDOUT)
-        for name, extra in (("api-server", ["--port", str(port)]), ("scheduler", []))
-    ]
+    def finished(stack):
+        runs = stack.api("GET", f"/api/v2/dags/{DAG_ID}/dagRuns?limit=100")["dag_runs"]
+        # Unpausing also schedules today's run (no batch there); only the backfill matters.
+        states = {r["logical_date"][:10]: r["state"] for r in runs if r["logical_date"] and r["logical_date"][:10] in DATES}
+        return states if len(states) == 3 and all(s in ("success", "failed") for s in states.values()) else None
+
     try:
-        deadline = time.monotonic() + 240
-        states: dict = {}
-        while time.monotonic() < deadline:
-            output = run("dags", "list-runs", DAG_ID, "-o", "json").stdout.splitlines()
-            listed = json.loads(next((line for line in reversed(output) if line.startswith("[")), "[]"))
-            # Unpausing also schedules today's run (no batch there); only the backfill matters.
-            states = {r["logical_date"][:10]: r["state"] for r in listed if r["logical_date"][:10] in DATES}
-            if len(states) == 3 and all(s in ("success", "failed") for s in states.values()):
-                break
-            time.sleep(2)
-        assert states == {d: "success" for d in DATES}, (states, (logs / "scheduler.log").read_text()[-3000:])
+        with live_stack(tmp_path, extra_env=extra_env, before_services=queue_backfill, components=("api-server", "scheduler")) as stack:
+            states = stack.wait_for(lambda: finished(stack), timeout=420, what="the three backfill runs to finish", interval=2)
+            assert states == {d: "success" for d in DATES}, (states, stack.log("scheduler"))
     finally:
-        for process in services:
-            process.terminate()
-        for process in services:
-            try:
-                process.wait(timeout=30)
-            except subprocess.TimeoutExpired:
-                process.kill()
         smtp.stop()
 
     for date in DATES:

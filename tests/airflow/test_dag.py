@@ -36,10 +36,10 @@ def test_dag_folder_imports_cleanly_without_heavy_imports():
 
     result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=os.environ.copy())
     assert result.returncode == 0, result.stderr[-3000:]
-    assert "decide_and_publish" in result.stdout and "validate_source" in result.stdout
+    assert "decide_and_publish" in result.stdout and "validate_source" in result.stdout and "check_items" in result.stdout
 
 
-def _run_dag(inbox: Path, out: Path, config: Path):
+def _run_dag(inbox: Path, out: Path, config: Path, **conf):
     from airflow.dag_processing.dagbag import DagBag
     import datetime as dt
 
@@ -49,7 +49,7 @@ def _run_dag(inbox: Path, out: Path, config: Path):
         task.retries = 0  # dag.test() would wait out the retry delay instead of failing
     return dag.test(
         logical_date=dt.datetime.fromisoformat(DATE).replace(tzinfo=dt.timezone.utc),
-        run_conf={"inbox": str(inbox), "out": str(out), "config": str(config)},
+        run_conf={"inbox": str(inbox), "out": str(out), "config": str(config), **conf},
     )
 
 
@@ -135,3 +135,24 @@ def test_dag_run_on_object_storage_matches_the_cli(airflow_db, tmp_path):
     assert (published / "decision.json").read_bytes() == (tmp_path / "cli-out" / f"batch_date={DATE}" / "decision.json").read_bytes()
     assert (published / "aggregate.parquet").is_file()
     assert (bucket / "out" / "index.html").is_file()
+
+
+def test_a_bad_file_is_quarantined_byte_for_byte_and_send_mail_false_needs_no_smtp(airflow_db, tmp_path, monkeypatch):
+    sys.path.insert(0, str(REPO / "tests" / "pipeline"))
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+    from inboxes import write_batch, write_config
+
+    monkeypatch.delenv("AIRFLOW_CONN_SMTP_DEFAULT", raising=False)
+    inbox, config, out = tmp_path / "inbox", write_config(tmp_path / "c.yaml"), tmp_path / "airflow-out"
+    folder = write_batch(inbox, DATE, seed=9)
+    bad = folder / "source_id=east" / "labels.parquet"
+    pq.write_table(pa.table({"item_id": ["lot-00000"], "grade": ["A"]}), bad)  # no label column
+    run = _run_dag(inbox, out, config, send_mail=False)
+    assert run.state == "success", run.state
+    states = {ti.task_id: ti.state for ti in run.get_task_instances()}
+    assert states["send_alerts"] == "skipped", states
+    batch = out / f"batch_date={DATE}"
+    assert (batch / "quarantine" / "source_id=east" / "labels.parquet").read_bytes() == bad.read_bytes()
+    decision = json.loads((batch / "decision.json").read_text())
+    assert [q["source_id"] for q in decision["quarantined"]] == ["east"]

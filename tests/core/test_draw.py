@@ -50,3 +50,21 @@ def test_drawn_entry_always_has_positive_probability(weights, date):
     result = draw(probabilities, "key", date)
     assert probabilities[result.index] > 0
     assert 0.0 <= result.u < 1.0
+
+
+def test_known_answer_pins_u_for_the_demo_key_and_a_date():
+    # Independent recomputation from the documented formula (core/draw.py): HMAC-SHA256 with
+    # the key as key and the ISO date as message, first 8 bytes big-endian, top 53 bits / 2**53.
+    import hashlib
+    import hmac
+
+    from truthsieve.core.draw import DEMO_DRAW_KEY
+
+    digest = hmac.new(b"truthsieve-demo-key-not-secret", b"2026-11-03", hashlib.sha256).hexdigest()
+    # Hard-coded from that computation (python3 hmac/hashlib, run once by hand), so a change
+    # of the demo key, the message format or the fraction is caught even if both sides drift.
+    assert digest == "ac536b3a21bcb58bd3990e9c815c91a03a77913f3e6ec7caab602ed5a3f72f4c"
+    expected = (0xAC536B3A21BCB58B >> 11) / 2**53
+    assert DEMO_DRAW_KEY == "truthsieve-demo-key-not-secret"
+    assert uniform_from_date(DEMO_DRAW_KEY, "2026-11-03") == expected
+    assert expected == pytest.approx(0.6731478707240395, abs=1e-16)

@@ -87,12 +87,21 @@ def test_sources_own_erm_is_reported():
 
 
 def test_budget_zero_reports_a_bracket_not_an_exact_value():
-    instance = rng_instance(np.random.default_rng(7), n_sources=3, n_items=6, shared=True, kind="threshold")
+    # Seed 1 gives a shared-input instance where src-0 gains 1/8 by misreporting (the
+    # exhaustive oracle below), so finding its target needs at least one reachability check.
+    instance = rng_instance(np.random.default_rng(1), n_sources=3, n_items=6, shared=True, kind="threshold")
     matrix, rule_class = core_objects(instance, "threshold")
     consensus = fit_consensus(matrix, rule_class)
-    for i in range(matrix.n_sources):
-        result = source_incentive(matrix, rule_class, consensus, i, budget=0)
-        assert result.gain_exact == (result.gain_upper == result.gain_lower)
+    index = matrix.source_ids.index("src-0")
+    exact = float(exhaustive_erm_gain(instance, "threshold", FEATURES, "src-0"))
+    assert exact > 0
+    bracket = source_incentive(matrix, rule_class, consensus, index, budget=0)
+    assert bracket.gain_exact is False
+    assert bracket.gain_lower - 1e-12 <= exact <= bracket.gain_upper + 1e-12
+    assert bracket.gain_lower < bracket.gain_upper
+    unlimited = source_incentive(matrix, rule_class, consensus, index, budget=None)
+    assert unlimited.gain_exact is True
+    assert unlimited.gain_lower == pytest.approx(exact, abs=1e-12) == unlimited.gain_upper
 
 
 @pytest.mark.parametrize("kind", ["constant", "threshold", "listed"])

@@ -3,7 +3,8 @@
 Every case writes a clean night (``inboxes.write_batch``), breaks one thing, screens it
 and checks: an error record with the expected rule naming the file (inbox-relative),
 the row (1 = first row; None when the problem is not about one row) and the column; a
-decision routed to review; a byte copy of the offending file in ``quarantine/`` or, for
+decision routed to review when the items table is at fault, aggregated without the source
+(listed as absent, ``why: quarantined``) when a source is; a byte copy of the offending file in ``quarantine/`` or, for
 entries that are never read (links leaving the inbox, misnamed or undecodable names), a
 documented refusal (the rule is one of ``layout.NOTE_CODES`` and nothing is copied);
 and every input file's sha256 unchanged. A dozen cases also run through the real
@@ -23,7 +24,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from inboxes import checksums, cli, write_batch, write_config, write_labels
+from inboxes import SOURCES, checksums, cli, write_batch, write_config, write_labels
 from truthsieve.pipeline.config import load_config
 from truthsieve.pipeline.layout import NOTE_CODES
 from truthsieve.pipeline.screen import screen
@@ -313,7 +314,13 @@ def _expect(case: Case, decision: dict, folder: Path, out_batch: Path, entry: Pa
     assert records[0]["message"]
     if case.name == "duplicate_across_files":
         assert len(records) == 1 and records[0]["message"].endswith(f"batch_date={DATE}/source_id=south/labels.parquet row 5")
-    assert decision["route"] == "review"
+    source = next((part.removeprefix("source_id=") for part in named.split("/") if part.startswith("source_id=")), None)
+    if source is None:  # the items table: no rule can be fitted tonight
+        assert decision["route"] == "review"
+    else:  # strategy_proof routing: a quarantined source is absent, not a veto
+        assert decision["route"] == "aggregate"
+        if source in SOURCES:  # unregistered folders are errors, not absent members
+            assert {"source_id": source, "why": "quarantined"} in decision["absent"]
     assert json.loads((out_batch / "quarantine" / "errors.json").read_text())["errors"] == decision["errors"]
     copy = out_batch / "quarantine" / entry.relative_to(folder)
     if case.copied and entry.is_dir():  # a source folder: every file in it is copied

@@ -4,10 +4,8 @@ from __future__ import annotations
 
 import json
 import os
-import signal
 import subprocess
 import sys
-import time
 from pathlib import Path
 
 import pyarrow.parquet as pq
@@ -53,14 +51,16 @@ def test_both_routes_are_reached_and_outputs_match_the_route(tmp_path):
 def test_rerun_gives_byte_identical_decision(tmp_path):
     inbox, config = tmp_path / "inbox", write_config(tmp_path / "c.yaml")
     write_batch(inbox, DATE, seed=2, bend={"east": 15.5})
-    first = cli(*screen_args(inbox, config, tmp_path / "a"))
-    second = cli(*screen_args(inbox, config, tmp_path / "a"))
-    other_place = cli(*screen_args(inbox, config, tmp_path / "b"))
-    assert first.returncode == second.returncode == other_place.returncode == 0
-    decisions = [(tmp_path / d / f"batch_date={DATE}" / "decision.json").read_bytes() for d in ("a", "a", "b")]
-    assert decisions[0] == (tmp_path / "b" / f"batch_date={DATE}" / "decision.json").read_bytes()
-    for name in ("sources.parquet", "report.html", "alerts.json"):
-        assert (tmp_path / "a" / f"batch_date={DATE}" / name).read_bytes() == (tmp_path / "b" / f"batch_date={DATE}" / name).read_bytes()
+    names = ("decision.json", "sources.parquet", "report.html", "alerts.json")
+    batch_a, batch_b = tmp_path / "a" / f"batch_date={DATE}", tmp_path / "b" / f"batch_date={DATE}"
+    assert cli(*screen_args(inbox, config, tmp_path / "a")).returncode == 0
+    first = {name: (batch_a / name).read_bytes() for name in names}  # kept before the rerun replaces them
+    assert cli(*screen_args(inbox, config, tmp_path / "a")).returncode == 0
+    second = {name: (batch_a / name).read_bytes() for name in names}
+    assert cli(*screen_args(inbox, config, tmp_path / "b")).returncode == 0
+    other_place = {name: (batch_b / name).read_bytes() for name in names}
+    assert first == second == other_place
+    assert b'"route": "review"' in first["decision.json"]  # the bent source makes it a non-trivial night
 
 
 def test_draw_key_changes_the_draw_but_not_the_analysis(tmp_path):
@@ -91,35 +91,6 @@ def test_two_concurrent_runs_of_one_date_leave_one_consistent_result(tmp_path):
     reference = cli(*screen_args(inbox, config, tmp_path / "alone"))
     assert reference.returncode == 0
     assert (batch / "decision.json").read_bytes() == (tmp_path / "alone" / f"batch_date={DATE}" / "decision.json").read_bytes()
-    assert not any((out / ".staging").iterdir())
-
-
-def visible_state(batch: Path) -> dict[str, bytes]:
-    return {p.name: p.read_bytes() for p in batch.iterdir()} if batch.exists() else {}
-
-
-def test_a_run_killed_mid_write_leaves_no_partial_output(tmp_path):
-    inbox, config, out = tmp_path / "inbox", write_config(tmp_path / "c.yaml"), tmp_path / "out"
-    write_batch(inbox, DATE, seed=5, n_items=20_000, bend={"south": 15.0})
-    command = [sys.executable, "-m", "truthsieve.pipeline.cli", *screen_args(inbox, config, out)]
-    complete = cli(*screen_args(inbox, config, tmp_path / "reference"))
-    assert complete.returncode == 0
-    reference = visible_state(tmp_path / "reference" / f"batch_date={DATE}")
-    batch = out / f"batch_date={DATE}"
-    started = time.monotonic()
-    cli(*screen_args(inbox, config, tmp_path / "timing"))
-    duration = time.monotonic() - started
-    for fraction in (0.3, 0.6, 0.8, 0.9, 0.95, 0.99):
-        process = subprocess.Popen(command, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-        time.sleep(duration * fraction)
-        process.send_signal(signal.SIGKILL)
-        process.wait()
-        state = visible_state(batch)
-        # Either nothing yet, or the complete result: never a half-written or temporary file.
-        assert state in ({}, reference), sorted(state)
-    final = cli(*screen_args(inbox, config, out))
-    assert final.returncode == 0
-    assert visible_state(batch) == reference
     assert not any((out / ".staging").iterdir())
 
 

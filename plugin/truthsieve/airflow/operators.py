@@ -1,8 +1,8 @@
 """Airflow operators: thin shells over :mod:`truthsieve.pipeline`.
 
 Each operator resolves its (templated) locations, calls one pipeline function and
-turns the outcome into the task's fate: bad input fails without retry
-(``AirflowFailException``), anything else (a transient I/O fault) fails with retry.
+turns the outcome into the task's fate (:func:`classify`): transient I/O faults fail
+with retry; bad input, configuration errors and bugs fail at once (``AirflowFailException``).
 Data moves through files under ``<out>/.work/batch_date=<date>/`` on storage every
 worker sees (see :mod:`truthsieve.airflow.storage`); XCom carries small summaries only.
 Nothing heavy is imported until ``execute`` runs.
@@ -19,13 +19,31 @@ from airflow.sdk.exceptions import AirflowFailException, AirflowSkipException
 from truthsieve.airflow import storage
 
 
-def _fail_on_bad_input(call):
-    from truthsieve.exceptions import InputError
+#: I/O faults a retry can cure; other OSErrors (a missing file, no permission) are permanent.
+PERMANENT_OS_ERRORS = (FileNotFoundError, PermissionError, IsADirectoryError, NotADirectoryError)
+
+
+def classify(call):
+    """Run ``call``; turn every error that a retry cannot cure into ``AirflowFailException``.
+
+    Retried (re-raised as is): transient I/O (``OSError`` such as ``ConnectionError``,
+    ``TimeoutError``, an SMTP failure) other than :data:`PERMANENT_OS_ERRORS`, and
+    ``BatchLockedError``. Failed at once: bad input and configuration, bugs, anything else.
+    """
+    from truthsieve.exceptions import BatchLockedError
 
     try:
         return call()
-    except InputError as error:
-        raise AirflowFailException(str(error)) from error
+    except (AirflowFailException, AirflowSkipException):
+        raise
+    except BatchLockedError:
+        raise
+    except OSError as error:
+        if isinstance(error, PERMANENT_OS_ERRORS):
+            raise AirflowFailException(f"{type(error).__name__}: {error}") from error
+        raise
+    except Exception as error:
+        raise AirflowFailException(f"{type(error).__name__}: {error}") from error
 
 
 class _BatchOperator(BaseOperator):
@@ -46,18 +64,32 @@ class _BatchOperator(BaseOperator):
         self.config_path = config_path
         self.out = out
 
+    def execute(self, context):
+        """Check the locations, then :meth:`run`, with errors classified by :func:`classify`."""
+        def checked():
+            for uri in (self.inbox, self.out, self.config_path):
+                if storage.is_local(uri):
+                    storage.local_path(uri)  # refuses a relative file:// or local:// URI
+            return self.run(context)
+
+        return classify(checked)
+
+    def run(self, context):
+        raise NotImplementedError
+
     def load_config(self):
         from truthsieve.pipeline.config import load_config
 
-        return _fail_on_bad_input(lambda: load_config(storage.location(self.config_path)))
+        return load_config(storage.location(self.config_path))
 
     @property
     def work(self):
         return storage.work_location(self.out, self.batch_date)
 
 
-def _items_check(inbox: str, batch_date: str, out: str, config):
-    """The night's items table, validated once per run and kept in the work folder."""
+def _items_check(inbox: str, batch_date: str, out: str, config, compute: bool = False):
+    """The night's items table: validated once per run by ``check_items`` (``compute``)
+    and read back from the work folder by every later task."""
     import pandas as pd
     import pyarrow as pa
 
@@ -66,14 +98,22 @@ def _items_check(inbox: str, batch_date: str, out: str, config):
 
     work = storage.work_location(out, batch_date)
     summary_path, table_path = work / "items.json", work / "items.parquet"
-    if summary_path.is_file():
+    if not compute:
+        if not summary_path.is_file():
+            raise AirflowFailException("the items table was not checked in this run (task check_items)")
         table = pd.read_parquet(pa.BufferReader(table_path.read_bytes())) if table_path.is_file() else None
         return ingest.FileCheck.from_summary(json.loads(summary_path.read_text()), table)
+    from truthsieve.pipeline.screen import validate_items
+
+    if storage.is_local(inbox) and storage.is_local(out):
+        from truthsieve.pipeline.locations import check_out_location
+
+        check_out_location(storage.local_path(inbox), storage.local_path(out))
     with storage.local_inbox(inbox, batch_date, folders=("items.parquet",)) as root:
-        check = ingest.validate_items(root, batch_date, config.rule_class.features, config.rule_class.kind == "listed")
+        check = validate_items(root, batch_date, config)
     if check.valid:
         storage.write_object(table_path, parquet_bytes(pa.Table.from_pandas(check.table, preserve_index=False)))
-    storage.write_object(summary_path, json.dumps(check.summary(), sort_keys=True).encode())
+    storage.write_object(summary_path, json.dumps(check.summary(), sort_keys=True).encode())  # last: the marker
     return check
 
 
@@ -96,6 +136,14 @@ def _intake(inbox: str, batch_date: str, out: str, config):
     return intake
 
 
+class CheckItemsOperator(_BatchOperator):
+    """Validate the night's items table once, before the mapped source validations read it."""
+
+    def run(self, context):
+        check = _items_check(self.inbox, self.batch_date, self.out, self.load_config(), compute=True)
+        return {"valid": check.valid, "errors": len(check.errors)}
+
+
 class ValidateSourceOperator(_BatchOperator):
     """Validate one source folder of a night (mappable over ``source_folder``).
 
@@ -108,19 +156,18 @@ class ValidateSourceOperator(_BatchOperator):
         super().__init__(**kwargs)
         self.source_folder = source_folder
 
-    def execute(self, context):
-        import pandas as pd
+    def run(self, context):
         import pyarrow as pa
 
         from truthsieve.pipeline import ingest
         from truthsieve.pipeline.outputs import parquet_bytes
+        from truthsieve.pipeline.screen import item_index
 
         config = self.load_config()
-        items = _items_check(self.inbox, self.batch_date, self.out, config)
-        item_ids = pd.Index(items.table["item_id"].to_numpy(dtype=object), dtype=object) if items.valid else None
+        item_ids, weights = item_index(_items_check(self.inbox, self.batch_date, self.out, config))
         with storage.local_inbox(self.inbox, self.batch_date, folders=(self.source_folder,)) as root:
             folder = ingest.batch_folder(root, self.batch_date) / self.source_folder
-            check = ingest.validate_source(root, folder, config.registry, item_ids)
+            check = ingest.validate_source(root, folder, config.registry, item_ids, weights)
         work = self.work / "sources"
         if check.valid:
             storage.write_object(work / f"{self.source_folder}.parquet", parquet_bytes(pa.Table.from_pandas(check.table, preserve_index=False)))
@@ -131,14 +178,14 @@ class ValidateSourceOperator(_BatchOperator):
 class FitConsensusOperator(_BatchOperator):
     """Fit the consensus rule (ERM) on the valid sources; returns the rule and its risk."""
 
-    def execute(self, context):
+    def run(self, context):
         from truthsieve.pipeline.analysis import prepare
 
         config = self.load_config()
         intake = _intake(self.inbox, self.batch_date, self.out, config)
         if not (intake.items.valid and intake.valid_sources):
             raise AirflowSkipException("no valid items table or no valid source: nothing to fit")
-        _, rule_class, consensus = _fail_on_bad_input(lambda: prepare(intake.labels, intake.items.table, config))
+        _, rule_class, consensus = prepare(intake.labels, intake.items.table, config)
         return {"rule": rule_class.describe(consensus.rule), "risk": consensus.risk, "sources": [s.source_id for s in intake.valid_sources]}
 
 
@@ -154,7 +201,7 @@ class SourceIncentiveOperator(_BatchOperator):
         super().__init__(**kwargs)
         self.source_id = source_id
 
-    def execute(self, context):
+    def run(self, context):
         from dataclasses import asdict
 
         from truthsieve.core.incentives import source_incentive
@@ -162,7 +209,7 @@ class SourceIncentiveOperator(_BatchOperator):
 
         config = self.load_config()
         intake = _intake(self.inbox, self.batch_date, self.out, config)
-        matrix, rule_class, consensus = _fail_on_bad_input(lambda: prepare(intake.labels, intake.items.table, config))
+        matrix, rule_class, consensus = prepare(intake.labels, intake.items.table, config)
         index = matrix.source_ids.index(self.source_id)
         result = source_incentive(matrix, rule_class, consensus, index, config.analysis.incentive_budget)
         storage.write_object(self.work / "incentives" / f"{self.source_id}.json", json.dumps(asdict(result), sort_keys=True).encode())
@@ -172,12 +219,13 @@ class SourceIncentiveOperator(_BatchOperator):
 class DecideAndPublishOperator(_BatchOperator):
     """Route the batch and publish its outputs; returns route, flagged sources and where."""
 
-    def execute(self, context):
+    def run(self, context):
         from truthsieve.core.incentives import SourceIncentive
         from truthsieve.pipeline.cli import write_index
         from truthsieve.pipeline.outputs import date_lock, publish, read_history, recover
         from truthsieve.pipeline.revisions import read_published_decision
         from truthsieve.pipeline.screen import decide, quarantine_copies
+        from truthsieve.pipeline.verdicts import in_force_before, record_publication
 
         config = self.load_config()
         intake = _intake(self.inbox, self.batch_date, self.out, config)
@@ -189,10 +237,10 @@ class DecideAndPublishOperator(_BatchOperator):
                 for s in sorted(c.source_id for c in intake.valid_sources)
             ]
 
-        def decide_and_collect(out_location):
+        def decide_and_collect(out_location, in_force=None):
             history = read_history(out_location, self.batch_date, config.routing.drift_window)
             previous = read_published_decision(out_location, self.batch_date)
-            decision, files, _ = _fail_on_bad_input(lambda: decide(intake, config, history, incentives, previous))
+            decision, files, _ = decide(intake, config, history, incentives, in_force_before=in_force, previous=previous)
             files.update(quarantine_copies(storage.location(self.inbox), intake))
             return decision, files
 
@@ -201,8 +249,9 @@ class DecideAndPublishOperator(_BatchOperator):
             out.mkdir(parents=True, exist_ok=True)
             with date_lock(out, self.batch_date):
                 recover(out, self.batch_date)
-                decision, files = decide_and_collect(out)
+                decision, files = decide_and_collect(out, in_force_before(out, self.batch_date))
                 output = publish(out, self.batch_date, files)
+                record_publication(out, self.batch_date, files["decision.json"])
             write_index(out)
         else:
             # Object stores have no cross-process lock: the DAG's one active run is the writer.
@@ -211,41 +260,3 @@ class DecideAndPublishOperator(_BatchOperator):
             write_index(storage.location(self.out))
         flagged = [s["source_id"] for s in decision["sources"] if s["flags"]]
         return {"route": decision["route"], "flagged": flagged, "output": str(output)}
-
-
-class SendAlertsOperator(_BatchOperator):
-    """Send the batch's ``alerts.json`` messages through an SMTP connection.
-
-    Messages go through :class:`~airflow.providers.smtp.hooks.smtp.SmtpHook` as plain text
-    wrapped in ``<pre>``: they carry source ids and reasons, which are never rendered as
-    templates. Delivery is recorded in ``alerts_sent.json`` beside ``alerts.json``.
-    """
-
-    def execute(self, context):
-        import html
-
-        from airflow.providers.smtp.hooks.smtp import SmtpHook
-
-        from truthsieve.pipeline.outputs import date_lock, dumps_decision, write_atomic
-
-        config = self.load_config()
-        folder = storage.location(self.out) / f"batch_date={self.batch_date}"
-        messages = json.loads((folder / "alerts.json").read_text())["messages"]
-        if not messages:
-            raise AirflowSkipException("nothing to alert")
-        with SmtpHook(smtp_conn_id=config.alerts.smtp_conn_id) as hook:
-            for message in messages:
-                hook.send_email_smtp(
-                    to=message["to"],
-                    subject=message["subject"],
-                    html_content=f"<pre>{html.escape(message['body'])}</pre>",
-                    from_email=config.alerts.from_address,
-                )
-        record = dumps_decision({"batch_date": self.batch_date, "sent": messages})
-        if storage.is_local(self.out):
-            out = storage.local_path(self.out)
-            with date_lock(out, self.batch_date):
-                write_atomic(out / f"batch_date={self.batch_date}" / "alerts_sent.json", record)
-        else:
-            storage.write_object(folder / "alerts_sent.json", record)
-        return {"sent": len(messages)}

@@ -101,22 +101,21 @@ def _progress(done: int, total: int, label: str) -> None:
 
 def write_index(out) -> Path:
     """Render ``index.html`` from every night's decision (``out`` may be object storage)."""
-    from truthsieve.pipeline.outputs import as_location, write_atomic
+    from truthsieve.pipeline.outputs import as_location, batch_location, published_dates, write_index_page
     from truthsieve.pipeline.report import render_index
 
     out = as_location(out)
-    decisions = [json.loads(p.read_text()) for p in sorted(out.glob("batch_date=*/decision.json"), key=str)]
-    path = out / "index.html"
+    decisions = [json.loads((batch_location(out, d) / "decision.json").read_text()) for d in published_dates(out)]
     entries = []
     if isinstance(out, Path):
         from truthsieve.pipeline.ledger import read_ledger
 
         entries = read_ledger(out)
     page = render_index(decisions, entries).encode()
-    if isinstance(path, Path):
-        write_atomic(path, page)
-    else:
-        path.write_bytes(page)  # one object PUT is atomic on object stores
+    if isinstance(out, Path):
+        return write_index_page(out, page)
+    path = out / "index.html"
+    path.write_bytes(page)  # one object PUT is atomic on object stores
     return path
 
 

@@ -1,10 +1,17 @@
 """Writing a batch's outputs: atomically, under a per-date lock, never half-visible.
 
-Everything of one batch date is written into a staging folder next to the output
-(same file system), then swapped in with two renames under an exclusive lock on the
-date. A run that dies while staging leaves the previous outputs untouched; a run that
-dies between the two renames leaves the previous outputs in ``.staging/``, and the
-next run of that date puts them back before it starts.
+Local layout: each publish writes one immutable revision folder
+``<out>/.revisions/batch_date=D.<token>/`` and then replaces ``<out>/batch_date=D``, a
+relative symlink, with a new symlink to it in one ``os.replace``. A reader of
+``<out>/batch_date=D/decision.json`` (or of the drift history) therefore sees either the
+previous night's files or the new ones, never a missing or half-swapped date, whatever
+moment the writer is killed at. A dead run's unreferenced revision, temporary link or
+temporary file is removed by the next run of that date (:func:`recover`), and stale
+``index.html`` temporaries by the next index write.
+
+Object stores (see :mod:`truthsieve.airflow.storage`) use the same idea with a small
+pointer object ``batch_date=D/_current.json`` naming the revision; :func:`batch_location`
+follows it, so history and index readers see whole nights only.
 """
 
 from __future__ import annotations
@@ -14,6 +21,7 @@ import fcntl
 import json
 import os
 import shutil
+import signal
 import time
 import uuid
 from collections.abc import Iterator, Mapping
@@ -23,10 +31,24 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from truthsieve.core.source_checks import SourceHistory
-from truthsieve.exceptions import BatchLockedError
+from truthsieve.exceptions import BatchLockedError, InputError
 
 STAGING = ".staging"
 LOCKS = ".locks"
+REVISIONS = ".revisions"
+POINTER = "_current.json"
+CRASH_VARIABLE = "TRUTHSIEVE_CRASH_AT"
+CARRIED_FORWARD = ("alerts_sent.json",)  # delivery records survive a republish of the same night
+
+
+def crash_point(step: str) -> None:
+    """TEST-ONLY fault injection: SIGKILL this process when ``TRUTHSIEVE_CRASH_AT`` equals ``step``.
+
+    The only place truthsieve reads that variable. Production never sets it; the crash
+    tests set it to each publishing step in turn (see ``tests/pipeline/test_crashes.py``).
+    """
+    if os.environ.get(CRASH_VARIABLE) == step:
+        os.kill(os.getpid(), signal.SIGKILL)
 
 
 def batch_output(out: str | Path, batch_date: str) -> Path:
@@ -38,13 +60,14 @@ def dumps_decision(decision: Mapping) -> bytes:
     return (json.dumps(decision, sort_keys=True, indent=2, allow_nan=False, ensure_ascii=False) + "\n").encode()
 
 
-def write_atomic(path: Path, data: bytes) -> None:
+def write_atomic(path: Path, data: bytes, step: str = "temporary_written") -> None:
     """Write ``data`` to ``path`` through a temporary name in the same folder."""
     temporary = path.with_name(f".{path.name}.{uuid.uuid4().hex}.tmp")
     with open(temporary, "wb") as handle:
         handle.write(data)
         handle.flush()
         os.fsync(handle.fileno())
+    crash_point(step)
     os.replace(temporary, path)
 
 
@@ -55,11 +78,9 @@ def parquet_bytes(table: pa.Table) -> bytes:
 
 
 @contextlib.contextmanager
-def date_lock(out: str | Path, batch_date: str, timeout: float = 600.0) -> Iterator[None]:
-    """Exclusive lock of one batch date across processes on this file system."""
-    folder = Path(out) / LOCKS
-    folder.mkdir(parents=True, exist_ok=True)
-    with open(folder / f"batch_date={batch_date}.lock", "a+") as handle:
+def _flock(path: Path, what: str, timeout: float) -> Iterator[None]:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    with open(path, "a+") as handle:
         deadline = time.monotonic() + timeout
         while True:
             try:
@@ -67,7 +88,7 @@ def date_lock(out: str | Path, batch_date: str, timeout: float = 600.0) -> Itera
                 break
             except BlockingIOError:
                 if time.monotonic() > deadline:
-                    raise BatchLockedError(f"batch {batch_date} is locked by another run") from None
+                    raise BatchLockedError(f"{what} is locked by another run") from None
                 time.sleep(0.05)
         try:
             yield
@@ -75,41 +96,107 @@ def date_lock(out: str | Path, batch_date: str, timeout: float = 600.0) -> Itera
             fcntl.flock(handle.fileno(), fcntl.LOCK_UN)
 
 
+def date_lock(out: str | Path, batch_date: str, timeout: float = 600.0):
+    """Exclusive lock of one batch date across processes on this file system."""
+    return _flock(Path(out) / LOCKS / f"batch_date={batch_date}.lock", f"batch {batch_date}", timeout)
+
+
+def _revision_target(final: Path) -> Path | None:
+    """The revision folder ``final`` points to, or None when it is not our symlink."""
+    if not final.is_symlink():
+        return None
+    return final.parent / os.readlink(final)
+
+
 def recover(out: str | Path, batch_date: str) -> None:
-    """Under the date lock: restore outputs a dead run left mid-swap; clear its staging."""
+    """Under the date lock: remove what a dead run of this date left behind.
+
+    The visible date is always whole (one symlink replace), so recovery only deletes:
+    revisions nothing points to, temporary links, and (legacy) staging folders; a
+    pre-revision plain folder left renamed away by an old two-rename swap is put back.
+    """
+    out = Path(out)
     final = batch_output(out, batch_date)
-    staging = Path(out) / STAGING
-    if not staging.is_dir():
-        return
-    leftovers = sorted(staging.glob(f"batch_date={batch_date}.*"))
-    previous = [p for p in leftovers if p.name.endswith(".previous")]
-    if not final.exists() and previous:
-        os.rename(previous[-1], final)
-    for path in staging.glob(f"batch_date={batch_date}.*"):
-        shutil.rmtree(path, ignore_errors=True)
+    staging = out / STAGING
+    if staging.is_dir():
+        leftovers = sorted(staging.glob(f"batch_date={batch_date}.*"))
+        previous = [p for p in leftovers if p.name.endswith(".previous") and p.is_dir()]
+        if not final.exists() and not final.is_symlink() and previous:
+            os.rename(previous[-1], final)
+        for path in staging.glob(f"batch_date={batch_date}.*"):
+            if path.is_dir() and not path.is_symlink():
+                shutil.rmtree(path, ignore_errors=True)
+            else:
+                path.unlink(missing_ok=True)
+    current = _revision_target(final)
+    revisions = out / REVISIONS
+    if revisions.is_dir():
+        for path in revisions.glob(f"batch_date={batch_date}.*"):
+            if current is None or path.name != current.name:
+                shutil.rmtree(path, ignore_errors=True)
 
 
 def publish(out: str | Path, batch_date: str, files: Mapping[str, bytes]) -> Path:
-    """Swap in a batch folder holding exactly ``files`` (relative path -> content).
+    """Make ``<out>/batch_date=D`` hold exactly ``files`` (relative path -> content), in one step.
 
-    Call under :func:`date_lock`.
+    Call under :func:`date_lock`. The steps (each a :func:`crash_point`): ``revision_started``
+    (one file written), ``revision_written``, ``link_created``, ``swapped`` (new symlink in
+    place, the old revision not yet removed), ``published``.
     """
     out = Path(out)
+    final = batch_output(out, batch_date)
+    if (final.exists() or final.is_symlink()) and not final.is_dir():
+        raise InputError(f"{final} exists and is not a batch output folder: move it away first")
+    previous = _revision_target(final)
+    files = dict(files)
+    for name in CARRIED_FORWARD:
+        if name not in files and final.is_dir() and (final / name).is_file():
+            files[name] = (final / name).read_bytes()
     token = uuid.uuid4().hex
-    staging = out / STAGING / f"batch_date={batch_date}.{token}"
-    staging.mkdir(parents=True)
-    for relative, data in sorted(files.items()):
-        target = staging / relative
+    revision = out / REVISIONS / f"batch_date={batch_date}.{token}"
+    revision.mkdir(parents=True)
+    for k, (relative, data) in enumerate(sorted(files.items())):
+        target = revision / relative
         target.parent.mkdir(parents=True, exist_ok=True)
         write_atomic(target, data)
-    final = batch_output(out, batch_date)
-    previous = out / STAGING / f"batch_date={batch_date}.{token}.previous"
-    if final.exists():
-        os.rename(final, previous)
-    os.rename(staging, final)
-    shutil.rmtree(previous, ignore_errors=True)
+        if k == 0:
+            crash_point("revision_started")
+    _fsync_folder(revision)
+    crash_point("revision_written")
+    if final.is_dir() and previous is None:
+        # A plain folder from before revisions: move it into a revision of its own first
+        # (a kill right here is undone by recover(), which puts it back).
+        legacy = out / STAGING / f"batch_date={batch_date}.{token}.previous"
+        legacy.parent.mkdir(parents=True, exist_ok=True)
+        os.rename(final, legacy)
+        previous = legacy
+    link = out / STAGING / f"batch_date={batch_date}.{token}.link"
+    link.parent.mkdir(parents=True, exist_ok=True)
+    os.symlink(os.path.join(REVISIONS, revision.name), link)
+    crash_point("link_created")
+    os.replace(link, final)
     _fsync_folder(out)
+    crash_point("swapped")
+    if previous is not None:
+        shutil.rmtree(previous, ignore_errors=True)
+    crash_point("published")
     return final
+
+
+#: Every crash point of a local publish and index write, in the order they are reached.
+PUBLISH_STEPS = ("temporary_written", "revision_started", "revision_written", "link_created", "swapped", "published", "index_temporary_written")
+
+
+def write_index_page(out: str | Path, page: bytes, timeout: float = 600.0) -> Path:
+    """Replace ``<out>/index.html`` atomically, under its own lock, removing temporaries
+    that killed writers left behind (``.index.html.<uuid>.tmp``)."""
+    out = Path(out)
+    path = out / "index.html"
+    with _flock(out / LOCKS / "index.lock", "the index", timeout):
+        for stale in out.glob(".index.html.*.tmp"):
+            stale.unlink(missing_ok=True)
+        write_atomic(path, page, step="index_temporary_written")
+    return path
 
 
 def _fsync_folder(folder: Path) -> None:
@@ -126,17 +213,31 @@ def as_location(location):
     return Path(location) if isinstance(location, str) else location
 
 
+def batch_location(out, batch_date: str):
+    """Where the published files of ``batch_date`` are: the revision an object store's
+    pointer names, else ``<out>/batch_date=D`` (locally a symlink to its revision)."""
+    out = as_location(out)
+    folder = out / f"batch_date={batch_date}"
+    pointer = folder / POINTER
+    if not isinstance(folder, Path) and pointer.is_file():
+        return out / REVISIONS / f"batch_date={batch_date}" / json.loads(pointer.read_text())["revision"]
+    return folder
+
+
+def published_dates(out) -> list[str]:
+    """Batch dates with a complete published night, oldest first."""
+    out = as_location(out)
+    dates = {p.name.removeprefix("batch_date=") for p in out.glob("batch_date=*")}
+    return sorted(d for d in dates if (batch_location(out, d) / "decision.json").is_file())
+
+
 def read_history(out, batch_date: str, window: int) -> dict[str, SourceHistory]:
     """Pooled per-source counts of the ``window`` latest batches before ``batch_date``."""
     out = as_location(out)
-    dates = sorted(
-        p.name.removeprefix("batch_date=")
-        for p in out.glob("batch_date=*")
-        if p.name.removeprefix("batch_date=") < batch_date and (p / "sources.parquet").is_file()
-    )[-window:]
+    dates = [d for d in published_dates(out) if d < batch_date and (batch_location(out, d) / "sources.parquet").is_file()][-window:]
     totals: dict[str, list[int]] = {}
     for date in dates:
-        data = (out / f"batch_date={date}" / "sources.parquet").read_bytes()
+        data = (batch_location(out, date) / "sources.parquet").read_bytes()
         table = pq.read_table(pa.BufferReader(data), columns=["source_id", "items", "positives", "disagreements"])
         for row in table.to_pylist():
             entry = totals.setdefault(row["source_id"], [0, 0, 0, 0])

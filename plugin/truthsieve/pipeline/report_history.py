@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 from collections.abc import Mapping
 
-from truthsieve.pipeline.outputs import as_location
+from truthsieve.pipeline.outputs import as_location, batch_location, published_dates
 
 STRIP_NIGHTS = 7
 
@@ -25,10 +25,10 @@ def recent_nights(out, batch_date: str, count: int = STRIP_NIGHTS) -> list[dict]
     """The ``count`` latest published nights before ``batch_date`` under ``out``, oldest first;
     an unreadable decision is skipped (the strip is a reading aid, not a record)."""
     out = as_location(out)
-    dates = sorted(p.name.removeprefix("batch_date=") for p in out.glob("batch_date=*") if p.name.removeprefix("batch_date=") < batch_date)
+    dates = [d for d in published_dates(out) if d < batch_date]
     briefs = []
     for date in dates[-count:]:
-        path = out / f"batch_date={date}" / "decision.json"
+        path = batch_location(out, date) / "decision.json"
         try:
             briefs.append(night_brief(json.loads(path.read_text())))
         except (OSError, ValueError, KeyError):

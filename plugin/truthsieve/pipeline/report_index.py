@@ -14,7 +14,7 @@ from truthsieve.pipeline.report_html import CAUTION, chip, e, f, page, route_bad
 
 def top_pull(decision: Mapping) -> str:
     """The source that pulled the fit beyond the limit (flag ``pulls_fit``) with its pull, or a dash."""
-    pulled = [s for s in decision["sources"] if "pulls_fit" in s["flags"]]
+    pulled = [s for s in decision.get("sources", []) if "pulls_fit" in s["flags"]]
     if not pulled:
         return "&ndash;"
     s = max(pulled, key=lambda x: x["pull"])
@@ -23,10 +23,10 @@ def top_pull(decision: Mapping) -> str:
 
 def _flags_cell(decision: Mapping) -> str:
     lines = []
-    for s in decision["sources"]:
+    for s in decision.get("sources", []):
         if s["flags"]:
             lines.append(f"{e(s['source_id'])}: " + "".join(chip(FLAG_NAMES.get(c, c), title=c) for c in s["flags"]))
-    for q in decision["quarantined"]:
+    for q in decision.get("quarantined", []):
         lines.append(f"{e(q['source_id'] or 'items table')}: {chip('quarantined', 'faint')}")
     for a in decision.get("absent", []):
         if a.get("why") == "no_folder":
@@ -38,20 +38,20 @@ def totals(decisions: Sequence[Mapping]) -> list[dict]:
     """Per source: nights with valid labels, flagged, quarantined, absent, and nights a
     blocking reason named it (it sent the night to review)."""
     names = sorted(
-        {s["source_id"] for d in decisions for s in d["sources"]}
-        | {q["source_id"] for d in decisions for q in d["quarantined"] if q["source_id"]}
+        {s["source_id"] for d in decisions for s in d.get("sources", [])}
+        | {q["source_id"] for d in decisions for q in d.get("quarantined", []) if q["source_id"]}
         | {a["source_id"] for d in decisions for a in d.get("absent", [])}
     )
     out = []
     for name in names:
         row = {"source_id": name, "valid": 0, "flagged": 0, "quarantined": 0, "absent": 0, "review": 0}
         for d in decisions:
-            mine = next((s for s in d["sources"] if s["source_id"] == name), None)
+            mine = next((s for s in d.get("sources", []) if s["source_id"] == name), None)
             row["valid"] += mine is not None
             row["flagged"] += bool(mine and mine["flags"])
-            row["quarantined"] += any(q["source_id"] == name for q in d["quarantined"])
+            row["quarantined"] += any(q["source_id"] == name for q in d.get("quarantined", []))
             row["absent"] += any(a["source_id"] == name and a.get("why") == "no_folder" for a in d.get("absent", []))
-            row["review"] += any(r["blocking"] and r.get("source_id") == name for r in d["reasons"])
+            row["review"] += any(r["blocking"] and r.get("source_id") == name for r in d.get("reasons", []))
         out.append(row)
     return out
 
@@ -66,7 +66,7 @@ def render_index(decisions: Sequence[Mapping], ledger_entries: Sequence[Mapping]
     decisions = sorted(decisions, key=lambda d: d["batch_date"])
     rows = []
     for d in decisions:
-        ratio = d["mechanism"]["ratio"] if d["mechanism"] else None
+        ratio = (d.get("mechanism") or {}).get("ratio")
         date = e(d["batch_date"])
         then = derive(ledger_entries, d["batch_date"])
         rows.append(

@@ -42,13 +42,13 @@ def story(decisions: Sequence[Mapping], ledger_entries: Sequence[Mapping] = ()) 
         f"{_nights(len(decisions))} from {decisions[0]['batch_date']} to {decisions[-1]['batch_date']}: "
         f"{routes.count('aggregate')} aggregated, {routes.count('review')} sent to review."
     ]
-    sources = sorted({s["source_id"] for d in decisions for s in d["sources"]})
+    sources = sorted({s["source_id"] for d in decisions for s in d.get("sources", [])})
     for source in sources:
-        rows = [(d, s) for d in decisions for s in d["sources"] if s["source_id"] == source]
+        rows = [(d, s) for d in decisions for s in d.get("sources", []) if s["source_id"] == source]
         pulled = [(d, s) for d, s in rows if "pulls_fit" in s["flags"]]
         if pulled:
             d, s = max(pulled, key=lambda ds: ds[1]["pull"])
-            drawn = [x for x, _ in pulled if (x["draw"] or {}).get("source_id") == source]
+            drawn = [x for x, _ in pulled if (x.get("draw") or {}).get("source_id") == source]
             shaped = [x["batch_date"] for x, y in pulled if "rule_shaped" in y["flags"]]
             lines.append(
                 f"{source}'s grades made the difference to the plain ERM fit on {_nights(len(pulled))} ({spans([x['batch_date'] for x, _ in pulled])}): "
@@ -72,8 +72,8 @@ def story(decisions: Sequence[Mapping], ledger_entries: Sequence[Mapping] = ()) 
                 f"balanced accuracy down to {worst:.3f}, with little pull: noise rather than a push in one direction."
             )
     for d in decisions:
-        for q in d["quarantined"]:
-            mine = [x for x in d["errors"] if q["source_id"] is None or f"source_id={q['source_id']}/" in x["file"]]
+        for q in d.get("quarantined", []):
+            mine = [x for x in d.get("errors", []) if q["source_id"] is None or f"source_id={q['source_id']}/" in x["file"]]
             first = mine[0] if mine else None
             where = f"; first: {first.get('code', first['rule'])} in {first['file']}, row {first['row'] or '-'}" if first else ""
             lines.append(f"On {d['batch_date']} {q['source_id'] or 'the items table'}'s delivery was quarantined ({len(mine)} problem(s){where}).")
@@ -84,7 +84,7 @@ def story(decisions: Sequence[Mapping], ledger_entries: Sequence[Mapping] = ()) 
     for d in decisions:
         if d["route"] != "review":
             continue
-        codes = sorted({r["code"] for r in d["reasons"] if r["blocking"]})
+        codes = sorted({r["code"] for r in d.get("reasons", []) if r["blocking"]})
         why = "; ".join(f"{REASON_CODES.get(c, c)} ({c})" for c in codes)
         night = state.get(d["batch_date"])
         verdict = ""

@@ -81,16 +81,29 @@ def ingest_batch(inbox: str | Path, batch_date: str, config: Config) -> Intake:
     folder = ingest.batch_folder(inbox, batch_date)
     if not folder.is_dir():
         raise InputError(f"{folder}: no such batch folder")
-    kind = config.rule_class.kind
-    items = ingest.validate_items(inbox, batch_date, config.rule_class.features, kind == "listed", kind)
-    item_ids = pd.Index(items.table["item_id"].to_numpy(dtype=object), dtype=object) if items.valid else None
-    weights = None
-    if items.valid:
-        weights = items.table["item_weight"].to_numpy(dtype=np.float64) if "item_weight" in items.table else np.ones(len(item_ids))
+    items = validate_items(inbox, batch_date, config)
+    item_ids, weights = item_index(items)
     intake = Intake(batch_date, items)
     for source_folder in ingest.source_folders(inbox, batch_date):
         intake.sources.append(ingest.validate_source(inbox, source_folder, config.registry, item_ids, weights))
     return intake
+
+
+def validate_items(inbox, batch_date: str, config: Config) -> ingest.FileCheck:
+    """Validate the night's items table against the configured rule class."""
+    kind = config.rule_class.kind
+    return ingest.validate_items(inbox, batch_date, config.rule_class.features, kind == "listed", kind)
+
+
+def item_index(items: ingest.FileCheck) -> tuple[pd.Index | None, np.ndarray | None]:
+    """(item ids, item weights) that every source's labels are checked against; None when
+    the items table is invalid."""
+    if not items.valid:
+        return None, None
+    item_ids = pd.Index(items.table["item_id"].to_numpy(dtype=object), dtype=object)
+    if "item_weight" in items.table:
+        return item_ids, items.table["item_weight"].to_numpy(dtype=np.float64)
+    return item_ids, np.ones(len(item_ids))
 
 
 def _rule(analysis: BatchAnalysis, index: int) -> dict:
