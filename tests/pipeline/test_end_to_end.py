@@ -111,22 +111,26 @@ def test_demo_backfills_fourteen_nights_and_prints_where_to_look(demo_run):
     assert f"last report: {out / f'batch_date={dates[-1]}' / 'report.html'}" in result.stdout
     assert f"history:     {out / 'index.html'}" in result.stdout
     routes = [json.loads((out / f"batch_date={d}" / "decision.json").read_text())["route"] for d in dates]
-    assert routes[: demo.STRATEGIC_FROM - 1] == ["aggregate"] * (demo.STRATEGIC_FROM - 1)
+    # strategy_proof routing: review only for the late re-screen (draw_revised) and the storm night (too_few_sources)
+    assert [k for k, r in enumerate(routes, start=1) if r == "review"] == [demo.ABSENT_NIGHT, demo.STORM_NIGHT]
     broken = json.loads((out / f"batch_date={dates[demo.BROKEN_NIGHT - 1]}" / "decision.json").read_text())
     assert [q["source_id"] for q in broken["quarantined"]] == [demo.BROKEN]
 
 
 def test_demo_flags_the_strategic_member_and_tells_the_careless_one_apart(demo_run):
     out, _ = demo_run
-    last = json.loads((out / f"batch_date={demo.night_dates()[-1]}" / "decision.json").read_text())
+    last = json.loads((out / f"batch_date={demo.night_dates()[demo.STORM_NIGHT - 2]}" / "decision.json").read_text())  # the last full night
     flags = {s["source_id"]: set(s["flags"]) for s in last["sources"]}
+    pulls = {s["source_id"]: s["pull"] for s in last["sources"]}
+    assert max(pulls, key=pulls.get) == demo.STRATEGIC
     assert "rule_shaped" in flags[demo.STRATEGIC]
     assert flags[demo.CARELESS] and "rule_shaped" not in flags[demo.CARELESS]
     assert flags[demo.STRATEGIC] != flags[demo.CARELESS]
     honest = [s for s, _, _ in demo.GRADERS if s not in (demo.STRATEGIC, demo.CARELESS)]
-    # Honest members look far from a consensus the strategic member moved, but none
-    # looks like a best response or pulls the fit.
-    assert all(not flags[s] & {"rule_shaped", "pulls_fit"} for s in honest if s in flags)
+    # Honest members look far from a consensus the strategic member moved, but none follows
+    # one cut exactly (a heavy honest member such as the lab may show pull: without it the
+    # strategic member would carry the fit; its pull stays below the strategic member's).
+    assert all("rule_shaped" not in flags[s] for s in honest if s in flags)
     assert "pulls_fit" in flags[demo.STRATEGIC]
     first_bent = json.loads((out / f"batch_date={demo.night_dates()[demo.STRATEGIC_FROM - 1]}" / "decision.json").read_text())
     cedar = next(s for s in first_bent["sources"] if s["source_id"] == demo.STRATEGIC)
@@ -136,7 +140,7 @@ def test_demo_flags_the_strategic_member_and_tells_the_careless_one_apart(demo_r
 def test_backfill_rerun_of_a_past_night_is_identical(demo_run, tmp_path):
     out, _ = demo_run
     inbox = out.with_name(out.name + "-inbox")
-    date = demo.night_dates()[8]
+    date = demo.night_dates()[demo.STORM_NIGHT - 2]  # its drift window does not reach the late-delivered night
     before = (out / f"batch_date={date}" / "decision.json").read_bytes()
     config = tmp_path / "demo.yaml"
     config.write_text(json.dumps(demo.demo_config_dict()))

@@ -51,7 +51,7 @@ def test_report_has_every_section_and_the_decisions_numbers(screened):
     _, batch, decision = screened
     page = Collector()
     page.feed((batch / "report.html").read_text())
-    for section in ("route", "reasons", "rules", "feature-plot", "sources", "gain-chart", "lottery", "draw", "inputs"):
+    for section in ("route", "summary", "decided", "in-force-now", "next-step", "who-pulled", "reasons", "rules", "feature-plot", "sources", "pull-chart", "history", "lottery", "draw", "inputs", "to-index"):
         assert section in page.ids, section
     assert page.ids["route"] == decision["route"]
     assert float(page.ids["ratio"]) == pytest.approx(decision["mechanism"]["ratio"], abs=5e-5)
@@ -103,3 +103,71 @@ def test_pages_render_in_headless_chromium(screened, tmp_path):
         image = Image.open(shot).convert("L")
         low, high = image.getextrema()
         assert high - low > 100  # not a blank page
+
+
+def _review_copy(decision):
+    review = json.loads(json.dumps(decision))
+    review["route"] = "review"
+    review["reasons"].append({"code": "too_few_sources", "message": "only 3 valid sources; the policy needs 4", "blocking": True})
+    return review
+
+
+def test_a_review_night_never_presents_its_drawn_rule_as_applied(screened):
+    from pathlib import Path
+
+    from truthsieve.pipeline.cli import summary
+    from truthsieve.pipeline.report_html import rule_text
+
+    _, _, decision = screened
+    review = _review_copy(decision)
+    before = {"rule": {"kind": "threshold", "feature": "moisture_pct", "cut": 14.25, "above": 0}, "since": "2026-11-01"}
+    import html
+    import re
+
+    markup = render_report(review, None, before)
+
+    def text(name):
+        found = re.search(rf"<p id='{name}'>(.*?)</p>", markup, re.S)
+        return html.unescape(re.sub("<[^>]+>", "", found.group(1)))
+
+    drawn = rule_text(review["draw"]["rule"])
+    assert "would apply if approved" in text("decided") and drawn in text("decided")
+    assert "published" not in text("decided")
+    # the rule in force is the one before the night (hand-made above), with its date
+    assert "moisture_pct > 14.25: reject; otherwise accept" in text("in-force-now") and "2026-11-01" in text("in-force-now")
+    assert f"truthsieve verdict --out OUT --date {DATE}" in text("next-step")
+    line = next(x for x in summary(review, Path("o")).splitlines() if x.strip().startswith("drawn"))
+    assert "would apply if approved; not in force" in line
+    line = next(x for x in summary(decision, Path("o")).splitlines() if x.strip().startswith("drawn"))
+    assert "in force from tonight" in line
+
+
+def test_feature_plot_bins_many_lots_and_says_so():
+    import numpy as np
+
+    from truthsieve.pipeline.report_charts import BINS, MAX_POINTS, feature_plot
+
+    rng = np.random.default_rng(5)
+    n = 1_000_000  # 10M labels at 10 sources
+    svg = feature_plot(rng.normal(14, 2, n), rng.random(n), "moisture_pct", {"consensus fit": 14.05, "drawn": 14.55})
+    assert len(svg.encode()) < 50_000  # the whole report stays far below 2 MB: nothing else grows with the lots
+    assert svg.count("<circle") <= BINS and f"{n} lots in" in svg and "bins" in svg
+    few = feature_plot(rng.normal(14, 2, MAX_POINTS), rng.random(MAX_POINTS), "moisture_pct", {"consensus fit": None, "drawn": None})
+    assert few.count("<circle") == MAX_POINTS and "one dot each" in few
+
+
+def test_history_strip_shows_each_nights_route_flags_quarantine_and_absence():
+    from truthsieve.pipeline.report_charts import history_strip
+
+    recent = [
+        {"batch_date": "2026-11-01", "route": "aggregate", "flags": {"a": ["pulls_fit"], "b": []}, "quarantined": [], "absent": ["c"]},
+        {"batch_date": "2026-11-02", "route": "review", "flags": {"a": []}, "quarantined": ["b"], "absent": []},
+    ]
+    tonight = {"batch_date": "2026-11-03", "route": "aggregate", "sources": [{"source_id": "a", "flags": ["rule_shaped"]}, {"source_id": "c", "flags": []}],
+               "quarantined": [], "absent": [{"source_id": "b", "why": "no_folder"}]}
+    rows = [r.split("</td>") for r in history_strip(recent, tonight).split("<tr>")[2:]]
+    cells = {r[0].rsplit(">", 1)[-1]: r[1:4] for r in rows}
+    assert "review" in cells["route"][1] and "aggregate" in cells["route"][2]
+    assert "pull high" in cells["a"][0] and "clear" in cells["a"][1] and "one-cut fit" in cells["a"][2]
+    assert "clear" in cells["b"][0] and "quarantined" in cells["b"][1] and "absent" in cells["b"][2]
+    assert "absent" in cells["c"][0] and cells["c"][1].endswith("<td class='t'>") and "clear" in cells["c"][2]

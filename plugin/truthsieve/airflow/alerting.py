@@ -56,7 +56,8 @@ class SendAlertsOperator(_BatchOperator):
                 hook.send_email_smtp(
                     to=message["to"],
                     subject=message["subject"],
-                    html_content=f"<pre>{html.escape(message['body'])}</pre>",
+                    # the composer escapes every value in "html"; older alerts.json had text only
+                    html_content=message.get("html") or f"<pre>{html.escape(message['body'])}</pre>",
                     from_email=config.alerts.from_address,
                 )
                 sent.append({**message, "sha256": digest})

@@ -224,6 +224,7 @@ class DecideAndPublishOperator(_BatchOperator):
         from truthsieve.core.incentives import SourceIncentive
         from truthsieve.pipeline.cli import write_index
         from truthsieve.pipeline.outputs import date_lock, publish, read_history, recover
+        from truthsieve.pipeline.report_history import recent_nights
         from truthsieve.pipeline.revisions import read_published_decision
         from truthsieve.pipeline.screen import decide, draw_key_from_environment, quarantine_copies
         from truthsieve.pipeline.verdicts import in_force_before, record_publication
@@ -243,7 +244,7 @@ class DecideAndPublishOperator(_BatchOperator):
             previous = read_published_decision(out_location, self.batch_date)
             decision, files, _ = decide(
                 intake, config, history, incentives, in_force_before=in_force, previous=previous,
-                draw_key=draw_key_from_environment(os.environ),
+                recent=recent_nights(out_location, self.batch_date), draw_key=draw_key_from_environment(os.environ),
             )
             files.update(quarantine_copies(storage.location(self.inbox), intake))
             return decision, files

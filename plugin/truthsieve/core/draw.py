@@ -45,8 +45,9 @@ def uniform_from_date(key: str, batch_date: str, revision: int = 0) -> float:
 
 
 def key_fingerprint(key: str) -> str:
-    """A short public fingerprint of the key: ``sha256:`` + 16 hex digits."""
-    return "sha256:" + hashlib.sha256(b"truthsieve-draw-key:" + key.encode()).hexdigest()[:16]
+    """A short public fingerprint of the key: ``draw-key:`` + 16 hex digits (the first 64
+    bits of SHA-256 over a domain-separated key; it names the key, it is no file digest)."""
+    return "draw-key:" + hashlib.sha256(b"truthsieve-draw-key:" + key.encode()).hexdigest()[:16]
 
 
 def inverse_cdf(probabilities: Sequence[float], u: float) -> int:

@@ -81,7 +81,8 @@ def summary(decision: dict, output: Path) -> str:
         for entry in mechanism["lottery"]:
             lines.append(f"      p={entry['probability']:.3f}  {entry['source_id'] or '-':<14} {rule_text(entry['rule'])}")
         draw = decision["draw"]
-        lines.append(f"  drawn (u={draw['u']:.6f}): {draw['source_id'] or '-'}: {rule_text(draw['rule'])}")
+        status = "in force from tonight" if decision["route"] == "aggregate" else "would apply if approved; not in force"
+        lines.append(f"  drawn (u={draw['u']:.6f}, {status}): {draw['source_id'] or '-'}: {rule_text(draw['rule'])}")
     flagged = [f"{s['source_id']} ({', '.join(s['flags'])})" for s in decision["sources"] if s["flags"]]
     lines.append(f"  flagged: {'; '.join(flagged) if flagged else 'none'}")
     for q in decision["quarantined"]:
@@ -187,7 +188,7 @@ def run(argv: Sequence[str] | None = None) -> int:
     if code == EXIT_OK:
         from truthsieve.pipeline.ledger_cli import finish_demo
 
-        finish_demo(args.out)
+        finish_demo(args.out, inbox)
     return code
 
 

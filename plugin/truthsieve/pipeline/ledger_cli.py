@@ -70,13 +70,27 @@ def _describe(state: dict) -> str:
     return f"rule in force: {rule_text(state['rule'])}\n  since night {state['since']} ({how}; ledger line {state['seq']})\n  decision sha256 {state['decision_sha256']}"
 
 
-def finish_demo(out: Path) -> None:
-    """The demo's reviewer records her verdicts; then the rule in force is printed."""
+def finish_demo(out: Path, inbox: Path | None = None) -> None:
+    """The rest of the demo's story after the 14 nights: the absent member's late file is
+    delivered and its night screened again (a changed re-screen: review), the index is
+    rewritten, the demo's reviewer records her verdicts; then the rule in force is printed."""
     from truthsieve.pipeline import demo, verdicts
 
+    if inbox is not None:
+        from truthsieve.pipeline.cli import summary, write_index
+        from truthsieve.pipeline.screen import screen
+
+        late = demo.deliver_late(inbox)
+        date = demo.night_dates()[demo.ABSENT_NIGHT - 1]
+        if late is not None:
+            print(f"\n{demo.ABSENT} delivers its file for {date} late: {late}")
+            result = screen(inbox, date, demo.demo_config(), out)
+            print(summary(result.decision, result.output))
     print(f"\nverdicts of {demo.REVIEWER}:")
     for line in demo.record_demo_verdicts(out, _now()):
         print(f"  {line}")
+    if inbox is not None:
+        write_index(out)
     print(_describe(verdicts.in_force(out)))
 
 

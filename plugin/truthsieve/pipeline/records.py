@@ -19,6 +19,33 @@ from truthsieve.pipeline.layout import Note, read_inside, relative, sha256
 # Enough rows per (file, rule) to find the pattern; the rest are counted in one record.
 MAX_ROWS_PER_RULE = 20
 
+# truthsieve's own names of what validation found (``code``), from the former codes, which
+# every record still carries as ``rule`` for one release (the contract: extend, never drop).
+# Codes not listed keep their name (it already says what the entry is).
+CODE_OF_FORMER = {
+    "missing_column": "table_lacks_column",
+    "extra_column": "file_holds_unlisted_column",
+    "wrong_type": "column_holds_other_type",
+    "duplicate_label": "lot_graded_twice",
+    "empty_file": "file_holds_no_rows",
+    "unreadable_parquet": "file_is_not_parquet",
+    "unreadable_file": "file_cannot_be_read",
+    "missing_file": "batch_lacks_items_table",
+    "duplicate_item_id": "lot_listed_twice",
+    "null_item_id": "lot_id_blank",
+    "null_label": "grade_blank",
+    "label_out_of_range": "grade_not_0_or_1",
+    "unknown_item": "lot_not_in_items_table",
+    "configured_column_missing": "table_lacks_feature",
+    "non_finite_feature": "feature_not_a_number",
+    "feature_out_of_range": "feature_beyond_limit",
+    "null_rule_value": "rule_value_blank",
+    "no_label_files": "folder_holds_no_labels",
+    "unknown_source": "source_not_in_registry",
+    "bad_source_id": "source_name_not_allowed",
+    "constant_features": "features_all_constant",
+}
+
 
 @dataclass(frozen=True)
 class ErrorRecord:
@@ -28,8 +55,16 @@ class ErrorRecord:
     rule: str
     message: str
 
+    @property
+    def code(self) -> str:
+        """truthsieve's name of what was found (``rule`` is the former code, kept as an alias)."""
+        return CODE_OF_FORMER.get(self.rule, self.rule)
+
     def as_dict(self) -> dict:
-        return asdict(self)
+        return {"file": self.file, "row": self.row, "column": self.column, "code": self.code, "rule": self.rule, "message": self.message}
+
+
+ERROR_FIELDS = ("file", "row", "column", "rule", "message")
 
 
 @dataclass(frozen=True)
@@ -74,7 +109,7 @@ class FileCheck:
             source_id=summary["source_id"],
             table=table,
             inputs=[InputFile(**f) for f in summary["inputs"]],
-            errors=[ErrorRecord(**e) for e in summary["errors"]],
+            errors=[ErrorRecord(**{k: e[k] for k in ERROR_FIELDS}) for e in summary["errors"]],
             notes=[Note(**n) for n in summary.get("notes", [])],
         )
 

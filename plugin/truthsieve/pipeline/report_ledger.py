@@ -4,7 +4,9 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
-from truthsieve.pipeline.report import _e, _table, rule_text
+from truthsieve.pipeline.report_html import e as _e
+from truthsieve.pipeline.report_html import rule_text
+from truthsieve.pipeline.report_html import table as _table
 
 
 def in_force_section(decision: Mapping, before: Mapping | None) -> str:
@@ -21,7 +23,7 @@ def in_force_section(decision: Mapping, before: Mapping | None) -> str:
         _table(["", "rule"], [["before this night", _e(was)], ["after this night", _e(after)]], text_columns=(0, 1)),
     ]
     if decision["route"] == "review":
-        approve = f"approve: the drawn rule ({rule_text(drawn)}) goes in force" if drawn else "approve: not possible, no rule was drawn"
+        approve = f"approve: the drawn rule ({rule_text(drawn)}), which would apply if approved, goes in force" if drawn else "approve: not possible, no rule was drawn"
         command = f"truthsieve verdict --out OUT --date {date} (--approve | --reject) --by NAME --note TEXT"
         parts.append(
             f"<p id='decide'>The reviewer decides: {_e(approve)}; reject: the rule in force stays. "

@@ -118,7 +118,7 @@ def route_batch(
 
 
 FLAG_SENTENCES = {
-    "rule_shaped": "its labels follow one rule of the class almost exactly while disagreeing with the consensus (the shape of a best-response report)",
+    "rule_shaped": "its labels follow one rule of the class almost exactly while differing from the consensus fit (careful graders can do this; so can a report tuned to one rule)",
     "far_from_consensus": "disagrees with the consensus rule more than the policy allows",
     "low_reliability": "Dawid-Skene balanced accuracy is below the policy's minimum",
     "low_agreement": "Cohen's kappa with the consensus labels is below the policy's minimum",

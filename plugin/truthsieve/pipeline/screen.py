@@ -33,6 +33,7 @@ from truthsieve.pipeline.outputs import (
     recover,
 )
 from truthsieve.pipeline.report import render_report
+from truthsieve.pipeline.report_history import recent_nights
 from truthsieve.pipeline.revisions import draw_revision, read_published_decision
 from truthsieve.pipeline.routing import AGGREGATE, REVIEW, route_batch
 from truthsieve.pipeline.verdicts import REVIEW_NOTE, in_force_before, record_publication
@@ -281,6 +282,7 @@ def decide(
     incentives: Sequence[SourceIncentive] | None = None,
     in_force_before: Mapping | None = None,
     previous: Mapping | None = None,
+    recent: Sequence[Mapping] | None = None,
     *,
     draw_key: tuple[str, bool] = DEMO_KEY,
 ) -> tuple[dict, dict[str, bytes], BatchAnalysis | None]:
@@ -317,11 +319,11 @@ def decide(
             "verdict": None,
         }
         files["review.json"] = dumps_decision(review)
-    alerts = compose_alerts(decision, config)
+    alerts = compose_alerts(decision, config, history)
     files["alerts.json"] = dumps_decision({"batch_date": intake.batch_date, "messages": alerts})
     if intake.errors:
         files["quarantine/errors.json"] = dumps_decision({"batch_date": intake.batch_date, "errors": decision["errors"]})
-    files["report.html"] = render_report(decision, analysis, in_force_before).encode()
+    files["report.html"] = render_report(decision, analysis, in_force_before, recent, config.routing).encode()
     return decision, files, analysis
 
 
@@ -369,6 +371,7 @@ def screen(
             in_force_before=in_force_before(out, batch_date),
             previous=read_published_decision(out, batch_date),
             draw_key=draw_key,
+            recent=recent_nights(out, batch_date),
         )
         files.update(quarantine_copies(inbox, intake))
         output = publish(out, batch_date, files)

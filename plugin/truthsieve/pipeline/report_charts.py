@@ -1,0 +1,151 @@
+"""Hand-made inline SVG charts of the report: no scripts, no network fetches.
+
+Point labels never overlap: each dot carries a number and a legend table beside the chart
+lists number, source and the plotted values. The feature plot bins the lots when there are
+many (the report stays small at millions of labels) and says so on the chart.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+
+import numpy as np
+
+from truthsieve.pipeline.report_html import PALETTE as P
+from truthsieve.pipeline.report_html import e, f, table
+
+MAX_POINTS = 400  # above this many lots the feature plot shows bins
+BINS = 120
+
+W, H, PAD = 460, 300, 46
+
+
+def _frame(x_label: str, y_label: str, x_ticks, y_ticks) -> list[str]:
+    parts = [
+        f"<line x1='{PAD}' y1='{H - PAD}' x2='{W - PAD}' y2='{H - PAD}' stroke='{P['ink']}'/>",
+        f"<line x1='{PAD}' y1='{PAD}' x2='{PAD}' y2='{H - PAD}' stroke='{P['ink']}'/>",
+        f"<text x='{W / 2}' y='{H - 8}' text-anchor='middle' font-size='12'>{e(x_label)}</text>",
+        f"<text x='12' y='{H / 2}' transform='rotate(-90 12 {H / 2})' text-anchor='middle' font-size='12'>{e(y_label)}</text>",
+    ]
+    for x, text in x_ticks:
+        parts.append(f"<text x='{x:.1f}' y='{H - PAD + 14}' font-size='10' text-anchor='middle'>{e(text)}</text>")
+    for y, text in y_ticks:
+        parts.append(f"<text x='{PAD - 4}' y='{y + 3:.1f}' font-size='10' text-anchor='end'>{e(text)}</text>")
+    return parts
+
+
+def _svg(inner: Sequence[str], label: str) -> str:
+    return (
+        f"<svg xmlns='http://www.w3.org/2000/svg' viewBox='0 0 {W} {H}' width='100%' style='max-width:{W + 60}px' role='img' "
+        f"aria-label='{e(label)}'><rect x='0' y='0' width='{W}' height='{H}' fill='{P['panel']}'/>{''.join(inner)}</svg>"
+    )
+
+
+def pull_chart(sources: Sequence[Mapping], max_pull: float | None) -> str:
+    """Disagreement (x) against pull (y): one numbered dot per source, a legend table with the
+    exact values, the pull limit as a dashed line. Flagged sources are amber squares,
+    unflagged ones blue circles (shape and colour both say it)."""
+    xs = [s["disagreement"] for s in sources] or [0.0]
+    ys = [s.get("pull") or 0.0 for s in sources] or [0.0]
+    x_max = max(0.05, max(xs) * 1.15)
+    y_max = max(0.02, max(ys) * 1.15, (max_pull or 0) * 1.3)
+
+    def px(x, y):
+        return PAD + x / x_max * (W - 2 * PAD), H - PAD - y / y_max * (H - 2 * PAD)
+
+    ticks = [px(x_max * k / 4, y_max * k / 4) for k in range(5)]
+    parts = _frame(
+        "disagreement with the consensus fit", "pull on the fit",
+        [(x, f"{x_max * k / 4:.2f}") for k, (x, _) in enumerate(ticks)],
+        [(y, f"{y_max * k / 4:.3f}") for k, (_, y) in enumerate(ticks)],
+    )
+    if max_pull is not None:
+        _, y = px(0, max_pull)
+        parts.append(f"<line x1='{PAD}' y1='{y:.1f}' x2='{W - PAD}' y2='{y:.1f}' stroke='{P['heed_ink']}' stroke-dasharray='5 4'/>")
+        parts.append(f"<text x='{W - PAD}' y='{y - 4:.1f}' font-size='10' text-anchor='end' fill='{P['heed_ink']}'>pull limit {max_pull:g}</text>")
+    rows = []
+    for k, s in enumerate(sources, start=1):
+        x, y = px(s["disagreement"], s.get("pull") or 0.0)
+        data = f"data-source='{e(s['source_id'])}' data-pull='{s.get('pull')!r}' data-disagreement='{s['disagreement']!r}'"
+        if s["flags"]:
+            parts.append(f"<rect x='{x - 7:.1f}' y='{y - 7:.1f}' width='14' height='14' fill='{P['heed']}' stroke='{P['ink']}' {data}/>")
+        else:
+            parts.append(f"<circle cx='{x:.1f}' cy='{y:.1f}' r='7' fill='{P['calm']}' stroke='{P['ink']}' {data}/>")
+        colour = P["ink"] if s["flags"] else "#fff"
+        parts.append(f"<text x='{x:.1f}' y='{y + 3.5:.1f}' font-size='10' text-anchor='middle' fill='{colour}'>{k}</text>")
+        rows.append([str(k), e(s["source_id"]), f(s["disagreement"]), f"<span class='pull'>{f(s.get('pull'))}</span>", "flagged" if s["flags"] else "&ndash;"])
+    chart = _svg(parts, "disagreement against pull, one numbered mark per source")
+    legend = table(["#", "source", "disagreement", "pull", ""], rows, text_columns=(1, 4))
+    return f"<div class='pair'><div>{chart}</div><div id='pull-legend'>{legend}</div></div>"
+
+
+def feature_plot(values: np.ndarray, accept_share: np.ndarray, feature: str, cuts: Mapping[str, float | None]) -> str:
+    """The share of sources accepting each lot (y) at its feature value (x), with the cuts.
+    Above :data:`MAX_POINTS` lots, the lots are put in :data:`BINS` equal-width bins and each
+    bin shows its mean share (dot area grows with the bin's count)."""
+    values = np.asarray(values, dtype=np.float64)
+    low, high = float(values.min()), float(values.max())
+    span = (high - low) or 1.0
+
+    def sx(v):
+        return PAD + (v - low) / span * (W - 2 * PAD)
+
+    def sy(v):
+        return H - PAD - v * (H - 2 * PAD)
+
+    parts = _frame(
+        feature, "share of sources accepting",
+        [(sx(low + span * k / 4), f"{low + span * k / 4:.1f}") for k in range(5)],
+        [(sy(k / 4), f"{k / 4:.2f}") for k in range(5)],
+    )
+    if len(values) > MAX_POINTS:
+        edges = np.linspace(low, high, BINS + 1)
+        which = np.clip(np.searchsorted(edges, values, side="right") - 1, 0, BINS - 1)
+        counts = np.bincount(which, minlength=BINS)
+        sums = np.bincount(which, weights=accept_share, minlength=BINS)
+        centres = (edges[:-1] + edges[1:]) / 2
+        points = [(centres[b], sums[b] / counts[b], 1.5 + 3.5 * np.sqrt(counts[b] / counts.max())) for b in np.flatnonzero(counts)]
+        note = f"{len(values)} lots in {len(points)} bins of width {span / BINS:.3g}: each dot is a bin's mean share"
+    else:
+        points = [(v, s, 2.4) for v, s in zip(values, accept_share)]
+        note = f"{len(values)} lots, one dot each"
+    for v, share, r in points:
+        colour = P["calm"] if share >= 0.5 else P["heed"]
+        parts.append(f"<circle cx='{sx(v):.1f}' cy='{sy(share):.1f}' r='{r:.1f}' fill='{colour}' fill-opacity='0.7'/>")
+    parts.append(f"<text x='{PAD + 4}' y='{PAD - 12}' font-size='10' id='feature-plot-note'>{e(note)}</text>")
+    styles = {"consensus fit": (P["ink"], ""), "drawn": (P["cut"], "stroke-dasharray='6 4'")}
+    for row, (name, cut) in enumerate(cuts.items()):
+        if cut is None:
+            continue
+        colour, dash = styles[name]
+        parts.append(f"<line x1='{sx(cut):.1f}' y1='{PAD - 4}' x2='{sx(cut):.1f}' y2='{H - PAD}' stroke='{colour}' stroke-width='2' {dash}/>")
+        parts.append(f"<text x='{sx(cut) + 4:.1f}' y='{PAD + 8 + 14 * row}' font-size='11' fill='{colour}'>{e(name)} cut {cut:g}</text>")
+    return _svg(parts, f"{feature}: share of sources accepting, with the cuts")
+
+
+def history_strip(recent: Sequence[Mapping], decision: Mapping) -> str:
+    """A table: one row per source, one column per night (the earlier nights given, then
+    tonight): each cell holds that night's flags as chips, or quarantined / absent; the
+    header row carries each night's route."""
+    nights = [*recent, {"batch_date": decision["batch_date"], "route": decision["route"], "flags": {s["source_id"]: s["flags"] for s in decision["sources"]},
+                        "quarantined": [q["source_id"] for q in decision["quarantined"] if q["source_id"]],
+                        "absent": [a["source_id"] for a in decision.get("absent", []) if a.get("why") != "quarantined"]}]
+    from truthsieve.pipeline.evidence import FLAG_NAMES
+    from truthsieve.pipeline.report_html import chip, route_badge
+
+    sources = sorted({s for n in nights for s in [*n["flags"], *n["quarantined"], *n["absent"]]})
+    headers = ["source", *(n["batch_date"][5:] for n in nights)]
+    rows = [["route", *(route_badge(n["route"]) if n["route"] else "&ndash;" for n in nights)]]
+    for source in sources:
+        cells = []
+        for n in nights:
+            if source in n["quarantined"]:
+                cells.append(chip("quarantined", "faint"))
+            elif source in n["absent"]:
+                cells.append(chip("absent", "faint"))
+            elif source not in n["flags"]:
+                cells.append("")
+            else:
+                cells.append("".join(chip(FLAG_NAMES.get(c, c), title=c) for c in n["flags"][source]) or chip("clear", "calm"))
+        rows.append([e(source), *cells])
+    return table(headers, rows, text_columns=tuple(range(len(headers))))
