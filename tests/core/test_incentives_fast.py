@@ -62,3 +62,20 @@ def test_fast_incentives_equal_the_full_pass_oracle(seed, kind, budget):
                 assert fast[name] == value, (name, i)
             else:
                 assert fast[name] == pytest.approx(value, abs=1e-9), (name, i)
+
+
+@pytest.mark.parametrize("kind", ["constant", "threshold", "listed"])
+@pytest.mark.parametrize("seed", range(10))
+def test_cut_bin_risks_equal_dense_predictions_on_all_and_on_a_subset(seed, kind):
+    from reference_incentives import predictions
+
+    matrix, rule_class = random_batch(seed, kind)
+    rng = np.random.default_rng(seed)
+    cost0, cost1 = rng.normal(size=matrix.n_items), rng.normal(size=matrix.n_items)
+    table = predictions(rule_class)
+    assert rule_class.linear_risks(cost0, cost1) == pytest.approx(cost0 @ ~table + cost1 @ table, abs=1e-9)
+    items = np.flatnonzero(rng.random(matrix.n_items) < 0.3)
+    sparse = rule_class.linear_risks(cost0[items], cost1[items], items=items)
+    assert sparse == pytest.approx(cost0[items] @ ~table[items] + cost1[items] @ table[items], abs=1e-9)
+    for rule in rng.integers(0, rule_class.size, 5):
+        assert (rule_class.predict(int(rule), items) == table[items, rule]).all()

@@ -101,7 +101,7 @@ class _Source:
     **Incremental scoring.** If ``i`` reports ``z`` instead of ``y_i``, its cost vectors
     change only on the flipped set ``F = {j in S_i : z_j != y_ij}``: with
     ``s_j = u_j / U_i`` and new label ``t_j = z_j``, ``cost0[j]`` changes by
-    ``s_j (2 t_j - 1)`` and ``cost1[j]`` by the opposite. Risks are linear in the costs,
+    ``s_j (2 t_j - 1)`` and ``cost1[j]`` by the opposite (a flip: ``t_j = 1 - y_ij``). Risks are linear in the costs,
     so every rule's risk under ``z`` is the base risk plus ``linear_risks`` of that
     change on ``F``: a ``bincount`` of ``F``'s cut bins per feature, O(d |F| + cuts),
     instead of a full O(d m) pass. For a rule ``r`` the change is
@@ -116,15 +116,15 @@ class _Source:
         own1 = np.where(self.truth, 0.0, self.shares)
         self.private_linear = rule_class.linear_risks(self.shares - own1, own1, items=self.items)
 
-    def flip_change(self, positions: np.ndarray, new_labels: np.ndarray) -> np.ndarray:
+    def flip_change(self, positions: np.ndarray) -> np.ndarray:
         """Change of every rule's private risk when the labels at ``positions`` (indices
-        into ``self.items``) are flipped to ``new_labels``."""
-        change0 = self.shares[positions] * np.where(new_labels, 1.0, -1.0)
+        into ``self.items``) are flipped."""
+        change0 = self.shares[positions] * np.where(self.truth[positions], -1.0, 1.0)
         return self.rule_class.linear_risks(change0, -change0, items=self.items[positions])
 
-    def disagreeing(self, labels: np.ndarray) -> np.ndarray:
-        """Positions in ``S_i`` where a rule with item labels ``labels`` differs from ``y_i``."""
-        return np.flatnonzero(labels[self.items] != self.truth)
+    def disagreeing(self, rule: int) -> np.ndarray:
+        """Positions in ``S_i`` where ``rule`` differs from ``y_i``: O(|S_i|)."""
+        return np.flatnonzero(self.rule_class.predict(rule, self.items) != self.truth)
 
 
 def _reaches(global_linear: np.ndarray, weight: float, change: np.ndarray, target: int) -> bool:
@@ -179,13 +179,11 @@ def cheapest_lie(
     deficit = max(0.0, float((totals[target] - totals).max()))
     lower = deficit * matrix.coverage_weight[index] / (2.0 * weight)
 
-    target_labels = rule_class.predict(target)
-    disagreeing = source.disagreeing(target_labels)
+    disagreeing = source.disagreeing(target)
     ordered = disagreeing[_lie_order(rule_class, target, source.items[disagreeing])]
-    new_labels = target_labels[source.items[ordered]]
 
     def reaches_with(count: int) -> bool:
-        return _reaches(global_linear, weight, source.flip_change(ordered[:count], new_labels[:count]), target)
+        return _reaches(global_linear, weight, source.flip_change(ordered[:count]), target)
 
     # Reachable with the first `high` flips, not with the first `low`. Prefixes lighter
     # than the margin bound cannot reach, so the search starts there and gallops up:
@@ -239,13 +237,9 @@ def source_incentive(
     consensus_rule = consensus.rule
     others_rule = first_minimum(others_risks)
     own_rule = first_minimum(private)
-    labels_of: dict[int, np.ndarray] = {}
-
     def change_to(rule: int) -> np.ndarray:
         """Change of every rule's R_i if source ``index`` reported ``rule``'s labels."""
-        labels = labels_of.setdefault(rule, rule_class.predict(rule))
-        positions = source.disagreeing(labels)
-        return source.flip_change(positions, labels[source.items[positions]])
+        return source.flip_change(source.disagreeing(rule))
 
     def distance_to(rule: int) -> np.ndarray:
         return np.maximum(source.private_linear + change_to(rule), 0.0)

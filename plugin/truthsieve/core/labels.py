@@ -24,6 +24,8 @@ from functools import cached_property
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
 
 from truthsieve.exceptions import NoItemsError, NoSourcesError, UnknownReferenceError, WeightError
 
@@ -58,14 +60,20 @@ class LabelMatrix:
     @cached_property
     def coverage_weight(self) -> np.ndarray:
         """``sum_{j in S_i} u_j`` per source: the denominator of ``R_i`` (computed once)."""
-        return self.labelled.astype(np.float64) @ self.item_weights
+        # Row by row: no (n, m) float temporary.
+        return np.array([self.item_weights[row].sum() for row in self.labelled], dtype=np.float64)
 
     @cached_property
     def _global_costs(self) -> tuple[np.ndarray, np.ndarray]:
-        scale = self.source_weights / self.coverage_weight
-        share = self.labelled * self.item_weights * scale[:, None]
-        positive = self.labels.astype(bool)
-        return np.where(positive, share, 0.0).sum(axis=0), np.where(positive, 0.0, share).sum(axis=0)
+        # Sum over sources of w_i / U_i * u_j on each source's own items, O(sum_i |S_i|).
+        cost0, cost1 = np.zeros(self.n_items), np.zeros(self.n_items)
+        for i in range(self.n_sources):
+            items = np.flatnonzero(self.labelled[i])
+            share = self.item_weights[items] * (self.source_weights[i] / self.coverage_weight[i])
+            positive = self.labels[i, items].astype(bool)
+            cost0[items[positive]] += share[positive]
+            cost1[items[~positive]] += share[~positive]
+        return cost0, cost1
 
     @property
     def shared_inputs(self) -> bool:
@@ -133,7 +141,10 @@ def build_label_matrix(
     if not np.isfinite(item_weights).all() or (item_weights < 0).any():
         raise WeightError("item weights must be finite and non-negative")
 
-    source_codes, source_names = pd.factorize(np.asarray(labels["source_id"], dtype=object))
+    # Ids stay in Arrow (no Python string per label): one hash join for items, one
+    # dictionary encoding for sources.
+    encoded = pc.dictionary_encode(id_array(labels["source_id"]))
+    source_names = encoded.dictionary.to_pylist()
     present = sorted(str(s) for s in source_names)
     if not present:
         raise NoSourcesError("no source labelled any item")
@@ -145,12 +156,14 @@ def build_label_matrix(
         bad = [s for s, w in zip(present, raw_weights) if not (np.isfinite(w) and w > 0)]
         raise WeightError(f"source weights must be positive and finite: {', '.join(bad)}")
 
-    label_items = np.asarray(labels["item_id"], dtype=object)
-    columns = pd.Index(item_ids.astype(object), dtype=object).get_indexer(label_items)
-    if (columns < 0).any():
-        unknown = label_items[columns < 0][0]
+    label_items = id_array(labels["item_id"])
+    found = pc.index_in(label_items, value_set=pa.array(item_ids, pa.string()))
+    if found.null_count:
+        unknown = label_items.filter(found.is_null())[0].as_py()
         raise UnknownReferenceError(f"label on unknown item {unknown!r}")
-    rows = np.searchsorted(np.array(present), np.asarray(source_names, dtype=str))[source_codes]
+    columns = found.to_numpy(zero_copy_only=False)
+    rank = np.searchsorted(np.array(present), np.array(source_names, dtype=str))
+    rows = rank[encoded.indices.to_numpy(zero_copy_only=False)]
 
     shape = (len(present), len(item_ids))
     dense_labels = np.zeros(shape, dtype=np.int8)
@@ -170,6 +183,20 @@ def build_label_matrix(
     if empty:
         raise NoItemsError(f"sources labelled no item of positive weight: {', '.join(empty)}")
     return matrix
+
+
+def id_array(values) -> pa.Array:
+    """Ids as one Arrow string array: from an Arrow column, a pandas column or index, or a list."""
+    if not isinstance(values, (pa.Array, pa.ChunkedArray)):
+        try:
+            values = pa.array(values)
+        except (pa.ArrowException, TypeError, ValueError):
+            values = pa.array(np.asarray(values, dtype=object).astype(str))
+    if isinstance(values, pa.ChunkedArray):  # pandas' Arrow-backed columns come chunked
+        values = values.combine_chunks()
+    if values.type != pa.string():
+        values = values.cast(pa.string())
+    return values
 
 
 def as_ids(values) -> np.ndarray:

@@ -57,8 +57,8 @@ class RuleClass:
         """
         raise NotImplementedError
 
-    def predict(self, index: int) -> np.ndarray:
-        """Labels (bool, one per item) of rule ``index``."""
+    def predict(self, index: int, items: np.ndarray | None = None) -> np.ndarray:
+        """Labels (bool, one per item) of rule ``index``; on ``items`` only when given."""
         raise NotImplementedError
 
     def describe(self, index: int) -> dict:
@@ -87,8 +87,8 @@ class ConstantRules(RuleClass):
     def linear_risks(self, cost0, cost1, items=None):
         return np.array([np.sum(cost0), np.sum(cost1)], dtype=np.float64)
 
-    def predict(self, index):
-        return np.full(self.n_items, bool(index))
+    def predict(self, index, items=None):
+        return np.full(self.n_items if items is None else len(items), bool(index))
 
     def describe(self, index):
         return {"kind": "constant", "label": int(index)}
@@ -164,11 +164,12 @@ class ThresholdRules(RuleClass):
         position, above = divmod(index - int(self.offsets[block]), 2)
         return feature, position, above
 
-    def predict(self, index):
+    def predict(self, index, items=None):
         if index < 2:
-            return np.full(self.n_items, bool(index))
+            return np.full(self.n_items if items is None else len(items), bool(index))
         feature, position, above = self.locate(index)
-        is_above = feature.values > feature.cuts[position]
+        values = feature.values if items is None else feature.values[items]
+        is_above = values > feature.cuts[position]
         return is_above if above else ~is_above
 
     def describe(self, index):
@@ -195,8 +196,8 @@ class ListedRules(RuleClass):
         table = self.table if items is None else self.table[items]
         return np.sum(cost0) + (np.asarray(cost1, dtype=np.float64) - cost0) @ table
 
-    def predict(self, index):
-        return self.table[:, index].copy()
+    def predict(self, index, items=None):
+        return self.table[:, index].copy() if items is None else self.table[items, index]
 
     def describe(self, index):
         return {"kind": "listed", "name": self.names[index]}

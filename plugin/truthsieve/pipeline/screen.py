@@ -82,7 +82,7 @@ def ingest_batch(inbox: str | Path, batch_date: str, config: Config) -> Intake:
         raise InputError(f"{folder}: no such batch folder")
     kind = config.rule_class.kind
     items = ingest.validate_items(inbox, batch_date, config.rule_class.features, kind == "listed", kind)
-    item_ids = pd.Index(items.table["item_id"].to_numpy(dtype=object), dtype=object) if items.valid else None
+    item_ids = ingest.id_array(items.table["item_id"]) if items.valid else None
     weights = None
     if items.valid:
         weights = items.table["item_weight"].to_numpy(dtype=np.float64) if "item_weight" in items.table else np.ones(len(item_ids))
