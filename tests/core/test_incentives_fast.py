@@ -79,3 +79,25 @@ def test_cut_bin_risks_equal_dense_predictions_on_all_and_on_a_subset(seed, kind
     assert sparse == pytest.approx(cost0[items] @ ~table[items] + cost1[items] @ table[items], abs=1e-9)
     for rule in rng.integers(0, rule_class.size, 5):
         assert (rule_class.predict(int(rule), items) == table[items, rule]).all()
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_a_source_analysed_alone_equals_the_batch_loop_bit_for_bit(seed):
+    # Airflow maps one task per source (no shared context); the CLI shares it.
+    from truthsieve.core import incentives
+
+    matrix, rule_class = random_batch(seed, "threshold")
+    consensus = fit_consensus(matrix, rule_class)
+    alone = [source_incentive(matrix, rule_class, consensus, i, 64) for i in range(matrix.n_sources)]
+    assert incentives(matrix, rule_class, consensus, 64) == alone
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_global_costs_without_a_source_equal_the_sum_over_the_others(seed):
+    from reference_incentives import coverage, others_costs
+
+    matrix, _ = random_batch(seed, "constant")
+    assert matrix.coverage_weight == pytest.approx(coverage(matrix), abs=1e-12)
+    for i in range(matrix.n_sources):
+        for fast, slow in zip(matrix.global_costs(exclude=i), others_costs(matrix, i)):
+            assert fast == pytest.approx(slow, abs=1e-12)
