@@ -20,9 +20,12 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
 
 from truthsieve.exceptions import NoItemsError, NoSourcesError, UnknownReferenceError, WeightError
 
@@ -54,10 +57,23 @@ class LabelMatrix:
     def n_items(self) -> int:
         return len(self.item_ids)
 
-    @property
+    @cached_property
     def coverage_weight(self) -> np.ndarray:
-        """``sum_{j in S_i} u_j`` per source: the denominator of ``R_i``."""
-        return self.labelled.astype(np.float64) @ self.item_weights
+        """``sum_{j in S_i} u_j`` per source: the denominator of ``R_i`` (computed once)."""
+        # Row by row: no (n, m) float temporary.
+        return np.array([self.item_weights[row].sum() for row in self.labelled], dtype=np.float64)
+
+    @cached_property
+    def _global_costs(self) -> tuple[np.ndarray, np.ndarray]:
+        # Sum over sources of w_i / U_i * u_j on each source's own items, O(sum_i |S_i|).
+        cost0, cost1 = np.zeros(self.n_items), np.zeros(self.n_items)
+        for i in range(self.n_sources):
+            items = np.flatnonzero(self.labelled[i])
+            share = self.item_weights[items] * (self.source_weights[i] / self.coverage_weight[i])
+            positive = self.labels[i, items].astype(bool)
+            cost0[items[positive]] += share[positive]
+            cost1[items[~positive]] += share[~positive]
+        return cost0, cost1
 
     @property
     def shared_inputs(self) -> bool:
@@ -69,16 +85,17 @@ class LabelMatrix:
         return report_costs(self, index, self.labels[index])
 
     def global_costs(self, exclude: int | None = None) -> tuple[np.ndarray, np.ndarray]:
-        """Cost vectors of ``R`` (or of ``R`` without source ``exclude``'s term)."""
-        scale = self.source_weights / self.coverage_weight
-        if exclude is not None:
-            scale = scale.copy()
-            scale[exclude] = 0.0
-        share = self.labelled * self.item_weights * scale[:, None]
-        positive = self.labels.astype(bool)
-        cost0 = np.where(positive, share, 0.0).sum(axis=0)
-        cost1 = np.where(positive, 0.0, share).sum(axis=0)
-        return cost0, cost1
+        """Cost vectors of ``R`` (or of ``R`` without source ``exclude``'s term).
+
+        ``R`` is computed once per matrix; without source ``i`` it is
+        ``R - w_i R_i`` by linearity, O(m) instead of O(n m).
+        """
+        cost0, cost1 = self._global_costs
+        if exclude is None:
+            return cost0.copy(), cost1.copy()
+        own0, own1 = self.source_costs(exclude)
+        weight = self.source_weights[exclude]
+        return cost0 - weight * own0, cost1 - weight * own1
 
 
 def report_costs(matrix: LabelMatrix, index: int, report: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -124,7 +141,10 @@ def build_label_matrix(
     if not np.isfinite(item_weights).all() or (item_weights < 0).any():
         raise WeightError("item weights must be finite and non-negative")
 
-    source_codes, source_names = pd.factorize(np.asarray(labels["source_id"], dtype=object))
+    # Ids stay in Arrow (no Python string per label): one hash join for items, one
+    # dictionary encoding for sources.
+    encoded = pc.dictionary_encode(id_array(labels["source_id"]))
+    source_names = encoded.dictionary.to_pylist()
     present = sorted(str(s) for s in source_names)
     if not present:
         raise NoSourcesError("no source labelled any item")
@@ -136,12 +156,14 @@ def build_label_matrix(
         bad = [s for s, w in zip(present, raw_weights) if not (np.isfinite(w) and w > 0)]
         raise WeightError(f"source weights must be positive and finite: {', '.join(bad)}")
 
-    label_items = np.asarray(labels["item_id"], dtype=object)
-    columns = pd.Index(item_ids.astype(object), dtype=object).get_indexer(label_items)
-    if (columns < 0).any():
-        unknown = label_items[columns < 0][0]
+    label_items = id_array(labels["item_id"])
+    found = pc.index_in(label_items, value_set=pa.array(item_ids, pa.string()))
+    if found.null_count:
+        unknown = label_items.filter(found.is_null())[0].as_py()
         raise UnknownReferenceError(f"label on unknown item {unknown!r}")
-    rows = np.searchsorted(np.array(present), np.asarray(source_names, dtype=str))[source_codes]
+    columns = found.to_numpy(zero_copy_only=False)
+    rank = np.searchsorted(np.array(present), np.array(source_names, dtype=str))
+    rows = rank[encoded.indices.to_numpy(zero_copy_only=False)]
 
     shape = (len(present), len(item_ids))
     dense_labels = np.zeros(shape, dtype=np.int8)
@@ -161,6 +183,20 @@ def build_label_matrix(
     if empty:
         raise NoItemsError(f"sources labelled no item of positive weight: {', '.join(empty)}")
     return matrix
+
+
+def id_array(values) -> pa.Array:
+    """Ids as one Arrow string array: from an Arrow column, a pandas column or index, or a list."""
+    if not isinstance(values, (pa.Array, pa.ChunkedArray)):
+        try:
+            values = pa.array(values)
+        except (pa.ArrowException, TypeError, ValueError):
+            values = pa.array(np.asarray(values, dtype=object).astype(str))
+    if isinstance(values, pa.ChunkedArray):  # pandas' Arrow-backed columns come chunked
+        values = values.combine_chunks()
+    if values.type != pa.string():
+        values = values.cast(pa.string())
+    return values
 
 
 def as_ids(values) -> np.ndarray:

@@ -14,7 +14,7 @@ import pandas as pd
 
 from truthsieve.core.agreement import fleiss_kappa, krippendorff_alpha_nominal
 from truthsieve.core.dawid_skene import DawidSkeneFit, dawid_skene
-from truthsieve.core.incentives import SourceIncentive, source_incentive
+from truthsieve.core.incentives import SourceIncentive, incentive_context, source_incentive
 from truthsieve.core.labels import LabelMatrix, build_label_matrix
 from truthsieve.core.mechanisms import ConsensusFit, MechanismResult, fit_consensus, run_mechanism
 from truthsieve.core.rules import RuleClass, build_rule_class
@@ -68,7 +68,9 @@ def analyse_batch(
     matrix, rule_class, consensus = prepare(labels, items, config)
     if incentives is None:
         budget = config.analysis.incentive_budget
-        incentives = [source_incentive(matrix, rule_class, consensus, i, budget) for i in range(matrix.n_sources)]
+        # The shared global risks are what a lone mapped task computes too: same floats.
+        shared = incentive_context(matrix, rule_class)
+        incentives = [source_incentive(matrix, rule_class, consensus, i, budget, shared) for i in range(matrix.n_sources)]
     registry_weights = {s.source_id: s.weight for s in config.sources}
     mechanism = run_mechanism(config.mechanism, matrix, rule_class, consensus, registry_weights)
     reliability = dawid_skene(

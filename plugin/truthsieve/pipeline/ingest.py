@@ -33,6 +33,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
+from truthsieve.core.labels import id_array
 from truthsieve.core.rules import RULE_COLUMN_PREFIX
 from truthsieve.pipeline import layout
 from truthsieve.pipeline.layout import ITEMS_FILE, display, inside, relative, sha256
@@ -186,7 +187,7 @@ def validate_source(
     inbox: str | Path,
     folder: str | Path,
     registry: Mapping[str, object],
-    item_ids: pd.Index | None,
+    item_ids: pd.Index | pa.Array | None,
     item_weights: np.ndarray | None = None,
 ) -> FileCheck:
     """Validate every Parquet file of one source folder.
@@ -195,10 +196,13 @@ def validate_source(
     table (``item_id``, ``source_id``, ``label``) with labels as int8 0/1. An item
     labelled twice, in one file or across two, is a ``duplicate_label`` naming both places.
 
+    :param item_ids: the items table's ids (any form :func:`~truthsieve.core.labels.id_array`
+        takes; pass an Arrow array to avoid converting it per source).
     :param item_weights: the items' weights aligned with ``item_ids``; when given, a
         source whose labelled items all weigh 0 is an error (``no_positive_weight``).
     """
     inbox, folder = Path(inbox), Path(folder)
+    item_ids = None if item_ids is None else id_array(item_ids)
     source_id = display(folder.name.removeprefix(layout.SOURCE_PREFIX))
     folder_name = relative(folder, inbox)
     check = FileCheck(source_id=source_id, table=None)
@@ -225,7 +229,7 @@ def validate_source(
         check.errors.append(ErrorRecord(folder_name, None, None, "no_label_files", "the source folder holds no .parquet file"))
         return check
 
-    frames, places = [], []
+    frames, places, positions = [], [], []
     for index, (name, data) in enumerate(contents):
         table, error = parse(name, data)
         if table is not None:
@@ -233,16 +237,16 @@ def validate_source(
         if error:
             check.errors.append(error)
             continue
-        frame, errors = _validate_labels(name, table, item_ids)
+        frame, errors, found = _validate_labels(name, table, item_ids)
         check.errors += errors
         if frame is not None:
             frames.append(frame)
             places.append(name)
+            positions.append(found)
     if frames:
         check.errors += _duplicate_errors(frames, places)
     if not check.errors and item_weights is not None:
-        labels = pd.concat(frames, ignore_index=True)
-        if not item_weights[item_ids.get_indexer(labels["item_id"].to_numpy())].sum() > 0:
+        if not item_weights[np.concatenate(positions)].sum() > 0:
             check.errors.append(ErrorRecord(folder_name, None, "item_weight", "no_positive_weight", "every item this source labelled has item_weight 0"))
     if not check.errors:
         labels = pd.concat(frames, ignore_index=True)
@@ -255,6 +259,9 @@ def validate_source(
 
 def _duplicate_errors(frames: list[pd.DataFrame], places: list[str]) -> list[ErrorRecord]:
     """``duplicate_label`` for every later occurrence of an item, naming the first one's file and row."""
+    every = pa.chunked_array([id_array(f["item_id"]) for f in frames], pa.string())
+    if pc.count_distinct(every).as_py() == len(every):
+        return []  # the common case, decided in Arrow without a Python string per row
     ids = np.concatenate([f["item_id"].to_numpy(dtype=object) for f in frames])
     codes, _ = pd.factorize(ids)
     _, first_of_code = np.unique(codes, return_index=True)
@@ -279,7 +286,10 @@ def _duplicate_errors(frames: list[pd.DataFrame], places: list[str]) -> list[Err
     return errors
 
 
-def _validate_labels(relative_path: str, table: pa.Table, item_ids: pd.Index | None) -> tuple[pd.DataFrame | None, list[ErrorRecord]]:
+def _validate_labels(
+    relative_path: str, table: pa.Table, item_ids: pa.Array | None
+) -> tuple[pd.DataFrame | None, list[ErrorRecord], np.ndarray | None]:
+    """(labels frame, errors, each row's position in ``item_ids``): one hash join per file."""
     errors: list[ErrorRecord] = []
     schema = table.schema
     for name in LABEL_COLUMNS:
@@ -295,11 +305,11 @@ def _validate_labels(relative_path: str, table: pa.Table, item_ids: pd.Index | N
         if not (pa.types.is_boolean(kind) or pa.types.is_integer(kind)):
             errors.append(ErrorRecord(relative_path, None, "label", "wrong_type", f"label must be bool or integer 0/1, not {kind}"))
     if errors:
-        return None, errors
+        return None, errors, None
 
     errors += _id_errors(relative_path, table.column("item_id"))
-    # Plain object arrays: pandas' Arrow-backed strings hash element by element in Python.
-    ids = pd.Series(table.column("item_id").to_numpy(zero_copy_only=False), dtype=object)
+    # Ids stay in Arrow: joined by a hash join, never one Python string per row.
+    ids = id_array(table.column("item_id"))
     raw = pd.Series(table.column("label").to_numpy(zero_copy_only=False))
     errors += row_errors(relative_path, np.flatnonzero(raw.isna().to_numpy()), "label", "null_label", "label is null")
     numeric = raw.astype("float64")
@@ -307,9 +317,13 @@ def _validate_labels(relative_path: str, table: pa.Table, item_ids: pd.Index | N
         relative_path, np.flatnonzero(raw.notna().to_numpy() & ~numeric.isin([0.0, 1.0]).to_numpy()),
         "label", "label_out_of_range", "label must be 0 or 1",
     )
+    found = None
     if item_ids is not None:
-        unknown = ids.notna().to_numpy() & (item_ids.get_indexer(ids.fillna("").to_numpy()) < 0)
+        joined = pc.index_in(ids, value_set=item_ids)
+        unknown = pc.and_(ids.is_valid(), joined.is_null()).to_numpy(zero_copy_only=False)
         errors += row_errors(relative_path, np.flatnonzero(unknown), "item_id", "unknown_item", "item_id is not in the items table")
     if errors:
-        return None, errors
-    return pd.DataFrame({"item_id": ids.to_numpy(), "label": numeric.to_numpy().astype(np.int8)}), []
+        return None, errors, None
+    if item_ids is not None:
+        found = joined.to_numpy(zero_copy_only=False)
+    return pa.table({"item_id": ids, "label": numeric.to_numpy().astype(np.int8)}).to_pandas(), [], found

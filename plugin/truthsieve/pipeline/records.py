@@ -151,7 +151,7 @@ def quarantine_bytes(inbox: str | Path, check: FileCheck) -> dict[str, bytes]:
 
 def parse(relative_path: str, data: bytes) -> tuple[pa.Table | None, ErrorRecord | None]:
     try:
-        table = pq.read_table(pa.BufferReader(data))
+        table = pq.ParquetFile(pa.BufferReader(data)).read()  # read_table would load the dataset layer
     except (pa.ArrowException, OSError, ValueError) as error:
         return None, ErrorRecord(relative_path, None, None, "unreadable_parquet", f"not a readable Parquet file: {error}")
     if table.num_rows == 0:

@@ -102,12 +102,12 @@ def validate_items(inbox, batch_date: str, config: Config) -> ingest.FileCheck:
     return ingest.validate_items(inbox, batch_date, config.rule_class.features, kind == "listed", kind)
 
 
-def item_index(items: ingest.FileCheck) -> tuple[pd.Index | None, np.ndarray | None]:
+def item_index(items: ingest.FileCheck) -> tuple[object, np.ndarray | None]:
     """(item ids, item weights) that every source's labels are checked against; None when
     the items table is invalid."""
     if not items.valid:
         return None, None
-    item_ids = pd.Index(items.table["item_id"].to_numpy(dtype=object), dtype=object)
+    item_ids = ingest.id_array(items.table["item_id"])
     if "item_weight" in items.table:
         return item_ids, items.table["item_weight"].to_numpy(dtype=np.float64)
     return item_ids, np.ones(len(item_ids))
