@@ -35,7 +35,7 @@ def test_fleiss_kappa_worked_example():
 
 
 def test_fleiss_kappa_on_fleiss_1971_psychiatric_diagnoses():
-    # Fleiss, "Measuring nominal scale agreement among many raters", Psychological Bulletin
+    # "Measuring nominal scale agreement among many raters", Psychological Bulletin
     # 76(5), 1971: 30 patients x 6 raters x 5 diagnoses, kappa = 0.430. The raw ratings as
     # shipped with statsmodels' own test suite (reproduced from R's irr package).
     from statsmodels.stats.tests.test_inter_rater import diagnoses
@@ -52,7 +52,8 @@ def test_fleiss_kappa_needs_equal_label_counts():
 
 def test_cohen_kappa_two_by_two_table():
     # [[20, 5], [10, 15]]: p_o = 0.70, p_e = 0.5*0.6 + 0.5*0.4 = 0.50, kappa = 0.40
-    # (hand calculation from Cohen, Educational and Psychological Measurement 20, 1960).
+    # (hand calculation; "A coefficient of agreement for nominal scales", Educational and
+    # Psychological Measurement 20, 1960).
     first = np.array([1] * 20 + [1] * 5 + [0] * 10 + [0] * 15)
     second = np.array([1] * 20 + [0] * 5 + [1] * 10 + [0] * 15)
     assert cohen_kappa(first, second) == pytest.approx(0.40)
@@ -68,7 +69,7 @@ def test_cohen_kappa_matches_scikit_learn_on_random_labels(seed):
 
 
 def test_krippendorff_alpha_published_example_with_missing_values():
-    # Krippendorff, "Computing Krippendorff's Alpha-Reliability", University of Pennsylvania,
+    # "Computing Krippendorff's Alpha-Reliability", University of Pennsylvania,
     # 2011: 4 observers x 12 units with missing values, nominal alpha = 0.743.
     nan = np.nan
     ratings = np.array(

@@ -19,7 +19,7 @@ def simulate(seed: int, n_items: int, sensitivities, specificities, prior_one: f
 
 
 def test_recovers_priors_and_confusion_matrices():
-    # Dawid and Skene, "Maximum likelihood estimation of observer error-rates using the EM
+    # "Maximum likelihood estimation of observer error-rates using the EM
     # algorithm", Applied Statistics 28, 1979: EM is consistent when sources err independently.
     # Tolerances are ours: priors within 0.02, confusion entries within 0.05.
     se = [0.95, 0.9, 0.8, 0.7, 0.6]

@@ -124,7 +124,7 @@ def test_dictator_guarantees_match_the_published_closed_forms(data):
     n = len(w)
     if n == 1:
         return
-    # Meir, Procaccia, Rosenschein, "Algorithms for strategyproof classification",
+    # "Algorithms for strategyproof classification",
     # Artificial Intelligence 186, 2012: 3 - 2/n for the uniform dictator with equal weights.
     tuned = run_mechanism("tuned_dictator", matrix, rule_class).guarantee
     assert tuned == pytest.approx(1 + 2 / float(np.sum(w / (1 - w))))

@@ -20,7 +20,7 @@ from truthsieve.core.sampling import (
 
 
 def test_wilson_interval_published_example():
-    # Newcombe, "Two-sided confidence intervals for the single proportion: comparison of
+    # "Two-sided confidence intervals for the single proportion: comparison of
     # seven methods", Statistics in Medicine 17, 1998, Table I: 81/263 -> 0.2553 to 0.3662.
     low, high = wilson_interval(81, 263)
     assert (round(low, 4), round(high, 4)) == (0.2553, 0.3662)

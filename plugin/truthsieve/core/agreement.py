@@ -9,7 +9,7 @@ def cohen_kappa(first: np.ndarray, second: np.ndarray) -> float | None:
     """Cohen's kappa of two label vectors on the same items (unweighted).
 
     ``kappa = (p_o - p_e) / (1 - p_e)`` with observed agreement ``p_o`` and chance
-    agreement ``p_e = sum_k p_first(k) p_second(k)`` (Cohen, "A coefficient of agreement
+    agreement ``p_e = sum_k p_first(k) p_second(k)`` ("A coefficient of agreement
     for nominal scales", Educational and Psychological Measurement 20, 1960). None when
     undefined (no items, or ``p_e = 1``: both raters used one and the same label).
     """
@@ -29,7 +29,7 @@ def fleiss_kappa(counts: np.ndarray) -> float | None:
 
     Every item must carry the same number of labels ``r``; ``P_j`` is the agreement on
     item ``j``, ``p_k`` the overall share of category ``k``:
-    ``kappa = (mean P_j - sum p_k^2) / (1 - sum p_k^2)`` (Fleiss, "Measuring nominal scale
+    ``kappa = (mean P_j - sum p_k^2) / (1 - sum p_k^2)`` ("Measuring nominal scale
     agreement among many raters", Psychological Bulletin 76(5), 1971). None when rows
     differ in count, fewer than two labels per item, or chance agreement is 1.
     """
@@ -52,7 +52,7 @@ def krippendorff_alpha_nominal(ratings: np.ndarray) -> float | None:
     Built from the coincidence matrix: each unit with ``m_u >= 2`` values adds
     ``1 / (m_u - 1)`` for every ordered pair of values from different raters.
     With ``n`` pairable values, ``n_c`` the coincidence marginals and ``o_cc`` the
-    diagonal, ``alpha = 1 - (n - 1) (n - sum o_cc) / (n^2 - sum n_c^2)`` (Krippendorff, "Computing Krippendorff's
+    diagonal, ``alpha = 1 - (n - 1) (n - sum o_cc) / (n^2 - sum n_c^2)`` ("Computing Krippendorff's
     Alpha-Reliability", University of Pennsylvania, 2011). None when no unit has two
     values or only one value occurs.
     """

@@ -4,7 +4,7 @@ Model: item ``j`` has a hidden class ``k`` with prior ``pi_k``; source ``i`` rep
 ``l`` with probability ``theta_i[k, l]`` independently of the others. EM alternates
 ``T_jk ∝ pi_k prod_i theta_i[k, y_ij]`` (over the sources that labelled ``j``) and
 ``theta_i[k, l] = sum_j T_jk [y_ij = l] / sum_j T_jk [i labelled j]``,
-``pi_k = mean_j T_jk`` (Dawid and Skene, "Maximum likelihood estimation of observer
+``pi_k = mean_j T_jk`` ("Maximum likelihood estimation of observer
 error-rates using the EM algorithm", Applied Statistics 28, 1979). Started from the
 majority proportions on each item, so classes keep their meaning.
 """

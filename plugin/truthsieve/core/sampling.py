@@ -11,9 +11,9 @@ import numpy as np
 def wilson_interval(successes: float, trials: float, confidence: float = 0.95) -> tuple[float, float]:
     """Wilson score interval for a proportion.
 
-    ``(p + z^2/2n +- z sqrt(p(1-p)/n + z^2/4n^2)) / (1 + z^2/n)`` (Wilson, "Probable
+    ``(p + z^2/2n +- z sqrt(p(1-p)/n + z^2/4n^2)) / (1 + z^2/n)`` ("Probable
     inference, the law of succession, and statistical inference", JASA 22, 1927;
-    Newcombe, "Two-sided confidence intervals for the single proportion", Statistics in
+    "Two-sided confidence intervals for the single proportion", Statistics in
     Medicine 17, 1998, method 3). ``(0, 1)`` when there are no trials.
     """
     if trials <= 0:
@@ -46,7 +46,7 @@ def two_proportion_p_value(successes_a: float, trials_a: float, successes_b: flo
 
 
 def holm_adjust(p_values: np.ndarray) -> np.ndarray:
-    """Holm's step-down adjusted p-values (Holm, "A simple sequentially rejective multiple
+    """Holm's step-down adjusted p-values ("A simple sequentially rejective multiple
     test procedure", Scandinavian Journal of Statistics 6, 1979)."""
     p_values = np.asarray(p_values, dtype=np.float64)
     count = len(p_values)
