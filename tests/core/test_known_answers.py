@@ -3,7 +3,6 @@ exact tie, and Holm's correction deciding a drift flag."""
 
 from __future__ import annotations
 
-import numpy as np
 import pandas as pd
 import pytest
 

@@ -10,12 +10,11 @@ import json
 import os
 from pathlib import Path
 
-import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from inboxes import SOURCES, checksums, cli, write_batch, write_config, write_labels
+from inboxes import checksums, cli, write_batch, write_config, write_labels
 from truthsieve.exceptions import ConfigError
 from truthsieve.pipeline import ingest
 from truthsieve.pipeline.config import load_config

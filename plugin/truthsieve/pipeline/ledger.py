@@ -24,16 +24,14 @@ undecided review night leaves the previous rule standing.
 
 from __future__ import annotations
 
-import contextlib
-import fcntl
 import hashlib
 import json
-import time
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
-from truthsieve.exceptions import BatchLockedError, LedgerBrokenError
+from truthsieve.exceptions import LedgerBrokenError
+from truthsieve.pipeline.outputs import flock_file
 
 LEDGER, IN_FORCE = "ledger.jsonl", "in_force.json"
 GENESIS = "0" * 64
@@ -109,25 +107,9 @@ def read_ledger(out: str | Path) -> list[dict]:
     return parse(data, head)
 
 
-@contextlib.contextmanager
-def ledger_lock(out: str | Path, timeout: float = 60.0) -> Iterator[None]:
+def ledger_lock(out: str | Path, timeout: float = 60.0):
     """Exclusive lock of the out folder's ledger (``<out>/.locks/ledger.lock``), bounded wait."""
-    folder = Path(out) / ".locks"
-    folder.mkdir(parents=True, exist_ok=True)
-    with open(folder / "ledger.lock", "a+") as handle:
-        deadline = time.monotonic() + timeout
-        while True:
-            try:
-                fcntl.flock(handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
-                break
-            except BlockingIOError:
-                if time.monotonic() > deadline:
-                    raise BatchLockedError(f"the ledger of {out} is locked by another run") from None
-                time.sleep(0.02)
-        try:
-            yield
-        finally:
-            fcntl.flock(handle.fileno(), fcntl.LOCK_UN)
+    return flock_file(Path(out) / ".locks" / "ledger.lock", f"the ledger of {out}", timeout)
 
 
 def extend(data: bytes, events: Sequence[Mapping]) -> bytes:

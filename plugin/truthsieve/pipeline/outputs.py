@@ -78,7 +78,8 @@ def parquet_bytes(table: pa.Table) -> bytes:
 
 
 @contextlib.contextmanager
-def _flock(path: Path, what: str, timeout: float) -> Iterator[None]:
+def flock_file(path: Path, what: str, timeout: float) -> Iterator[None]:
+    """Exclusive flock on ``path`` across processes, waiting at most ``timeout`` seconds."""
     path.parent.mkdir(parents=True, exist_ok=True)
     with open(path, "a+") as handle:
         deadline = time.monotonic() + timeout
@@ -98,7 +99,7 @@ def _flock(path: Path, what: str, timeout: float) -> Iterator[None]:
 
 def date_lock(out: str | Path, batch_date: str, timeout: float = 600.0):
     """Exclusive lock of one batch date across processes on this file system."""
-    return _flock(Path(out) / LOCKS / f"batch_date={batch_date}.lock", f"batch {batch_date}", timeout)
+    return flock_file(Path(out) / LOCKS / f"batch_date={batch_date}.lock", f"batch {batch_date}", timeout)
 
 
 def _revision_target(final: Path) -> Path | None:
@@ -192,7 +193,7 @@ def write_index_page(out: str | Path, page: bytes, timeout: float = 600.0) -> Pa
     that killed writers left behind (``.index.html.<uuid>.tmp``)."""
     out = Path(out)
     path = out / "index.html"
-    with _flock(out / LOCKS / "index.lock", "the index", timeout):
+    with flock_file(out / LOCKS / "index.lock", "the index", timeout):
         for stale in out.glob(".index.html.*.tmp"):
             stale.unlink(missing_ok=True)
         write_atomic(path, page, step="index_temporary_written")

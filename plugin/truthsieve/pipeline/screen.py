@@ -24,7 +24,6 @@ from truthsieve.pipeline.alerts import compose_alerts
 from truthsieve.pipeline.analysis import BatchAnalysis, analyse_batch
 from truthsieve.pipeline.config import Config
 from truthsieve.pipeline.outputs import (
-    as_location,
     date_lock,
     dumps_decision,
     parquet_bytes,

@@ -150,7 +150,7 @@ def record_verdict(
     """
     by = _reviewer(by)
 
-    def events(entries):
+    def events(entries, decision_bytes):
         published, view = _with_publication(entries, batch_date, decision_bytes)
         night = nights(view)[batch_date]
         if night.status != AWAITING:
@@ -170,13 +170,7 @@ def record_verdict(
         }
         return [*published, verdict]
 
-    Path(out).mkdir(parents=True, exist_ok=True)
-    with date_lock(out, batch_date, lock_timeout):
-        decision_bytes = _published_decision(out, batch_date)
-        state, entries = _commit(out, events, lock_timeout)
-        _sync_review_file(out, batch_date, entries)
-    _refresh_index(out)
-    return state
+    return _record_decision(out, batch_date, events, lock_timeout)
 
 
 def record_revocation(out: str | Path, batch_date: str, by: str, note: str, at: str, lock_timeout: float = 60.0) -> dict:
@@ -186,7 +180,7 @@ def record_revocation(out: str | Path, batch_date: str, by: str, note: str, at: 
     if not (note or "").strip():
         raise VerdictError("--note must say why the night's rule is revoked")
 
-    def events(entries):
+    def events(entries, decision_bytes):
         published, view = _with_publication(entries, batch_date, decision_bytes)
         night = nights(view)[batch_date]
         if not night.puts_in_force():
@@ -205,9 +199,16 @@ def record_revocation(out: str | Path, batch_date: str, by: str, note: str, at: 
             },
         ]
 
+    return _record_decision(out, batch_date, events, lock_timeout)
+
+
+def _record_decision(out: str | Path, batch_date: str, events, lock_timeout: float) -> dict:
+    """Append ``events(entries, published decision bytes)`` under the date's lock, then bring
+    review.json and the index up to date; returns the new in_force.json content."""
+    Path(out).mkdir(parents=True, exist_ok=True)
     with date_lock(out, batch_date, lock_timeout):
         decision_bytes = _published_decision(out, batch_date)
-        state, entries = _commit(out, events, lock_timeout)
+        state, entries = _commit(out, lambda entries: events(entries, decision_bytes), lock_timeout)
         _sync_review_file(out, batch_date, entries)
     _refresh_index(out)
     return state
