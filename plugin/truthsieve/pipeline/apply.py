@@ -32,6 +32,15 @@ def _needed_column(rule: dict) -> str | None:
     return None
 
 
+def _written_by_apply(path: Path) -> bool:
+    """True for a Parquet file an earlier ``apply`` wrote (it carries the rule's identity)."""
+    try:
+        metadata = pq.read_schema(path).metadata or {}
+    except (OSError, pa.ArrowException):
+        return False
+    return b"truthsieve.in_force" in metadata
+
+
 def _first_bad_row(mask) -> int:
     return int(np.flatnonzero(np.asarray(mask))[0]) + 1
 
@@ -76,6 +85,10 @@ def apply_rule(out: str | Path, items_path: str | Path, write_path: str | Path, 
         raise InputError(f"{out}: no rule in force{when}: no night was aggregated or approved yet")
     if write_path.resolve() == items_path.resolve():
         raise InputError(f"{write_path}: --write must not be the items file (input files are never modified)")
+    if not write_path.parent.is_dir():
+        raise InputError(f"{write_path}: folder {write_path.parent} does not exist")
+    if write_path.exists() and not _written_by_apply(write_path):
+        raise InputError(f"{write_path}: exists and was not written by truthsieve apply; refusing to overwrite it")
     try:
         schema = pq.read_schema(items_path)
     except (OSError, pa.ArrowException) as error:
@@ -92,12 +105,17 @@ def apply_rule(out: str | Path, items_path: str | Path, write_path: str | Path, 
         raise InputError(f"{items_path}: column 'item_id' must be strings, not {ids.type}")
     if ids.null_count:
         raise InputError(f"{items_path}: row {_first_bad_row(ids.is_null().to_numpy(zero_copy_only=False))}, column 'item_id': null item id")
+    distinct = pc.unique(ids)
+    if len(distinct) != len(ids):
+        codes = pc.index_in(ids, value_set=distinct).to_numpy(zero_copy_only=False)
+        repeated = np.ones(len(codes), dtype=bool)
+        repeated[np.unique(codes, return_index=True)[1]] = False
+        raise InputError(f"{items_path}: row {_first_bad_row(repeated)}, column 'item_id': item id appears on an earlier row")
     labels = label_items(table, rule, str(items_path))
     identity = json.dumps(rule, sort_keys=True)
     rule_column = pa.DictionaryArray.from_arrays(pa.array(np.zeros(table.num_rows, dtype=np.int32)), pa.array([identity]))
     result = pa.table({"item_id": ids, "label": labels, "rule": rule_column})
     result = result.replace_schema_metadata({"truthsieve.in_force": json.dumps(state, sort_keys=True)})
-    write_path.parent.mkdir(parents=True, exist_ok=True)
     temporary = write_path.with_name(f".{write_path.name}.{uuid.uuid4().hex}.tmp")
     try:
         pq.write_table(result, temporary)

@@ -18,20 +18,20 @@ from pathlib import Path
 from truthsieve import __version__
 from truthsieve.exceptions import BatchLockedError, InputError
 from truthsieve.pipeline.locations import check_features_present, check_out_location
-from truthsieve.pipeline.ledger_cli import LEDGER_COMMANDS, add_ledger_commands, run_ledger_command
+from truthsieve.pipeline.ledger_cli import LEDGER_COMMANDS, _date, _seconds, add_ledger_commands, run_ledger_command
 
 EXIT_OK, EXIT_FAILURE, EXIT_INPUT, EXIT_LOCKED = 0, 1, 2, 3
 
 
-def _date(text: str) -> str:
-    try:
-        return dt.date.fromisoformat(text).isoformat()
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a date of the form YYYY-MM-DD") from None
+class _OneLineParser(argparse.ArgumentParser):
+    """Usage errors as one line on stderr, exit 2 (``--help`` still shows the usage)."""
+
+    def error(self, message: str):
+        self.exit(EXIT_INPUT, f"error: {self.prog}: {message} (see {self.prog} --help)\n")
 
 
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    parser = _OneLineParser(
         prog="truthsieve",
         description="Screen nightly multi-source label batches before they shape a shared decision rule.",
         epilog="Exit codes: 0 decision(s) written; 2 bad configuration or missing batch; 3 batch locked; 1 other failure.",
@@ -44,7 +44,7 @@ def build_parser() -> argparse.ArgumentParser:
     screen.add_argument("--date", required=True, type=_date, help="batch date, YYYY-MM-DD")
     screen.add_argument("--config", required=True, type=Path, help="YAML configuration file")
     screen.add_argument("--out", required=True, type=Path, help="output root")
-    screen.add_argument("--lock-timeout", type=float, default=600.0, help="seconds to wait for another run of the same date (default 600)")
+    screen.add_argument("--lock-timeout", type=_seconds, default=600.0, help="seconds to wait for another run of the same date (default 600)")
     screen.add_argument("--json", action="store_true", help="print the decision as JSON instead of the summary")
 
     backfill = commands.add_parser("backfill", help="screen every night of a date range, oldest first")
@@ -53,7 +53,7 @@ def build_parser() -> argparse.ArgumentParser:
     backfill.add_argument("--to", dest="last", required=True, type=_date, help="last batch date, YYYY-MM-DD (inclusive)")
     backfill.add_argument("--config", required=True, type=Path)
     backfill.add_argument("--out", required=True, type=Path)
-    backfill.add_argument("--lock-timeout", type=float, default=600.0)
+    backfill.add_argument("--lock-timeout", type=_seconds, default=600.0)
 
     demo = commands.add_parser("demo", help="generate the grain cooperative demo (if missing) and backfill its 14 nights")
     demo.add_argument("--out", type=Path, default=Path("out/demo"), help="output root (default out/demo)")
@@ -194,13 +194,19 @@ def run(argv: Sequence[str] | None = None) -> int:
 
 def main(argv: Sequence[str] | None = None) -> int:
     try:
-        return run(argv)
+        code = run(argv)
+        sys.stdout.flush()  # inside the try: a reader that went away is reported here
+        return code
     except BatchLockedError as error:
         print(f"error: {error}", file=sys.stderr)
         return EXIT_LOCKED
     except InputError as error:
         print(f"error: {error}", file=sys.stderr)
         return EXIT_INPUT
+    except BrokenPipeError:
+        # the reader went away (e.g. ``| head``): no traceback, and no second error at exit
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return EXIT_FAILURE
 
 
 if __name__ == "__main__":

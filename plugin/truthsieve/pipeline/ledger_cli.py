@@ -17,10 +17,24 @@ LEDGER_COMMANDS = ("verdict", "revoke", "in-force", "apply", "ledger")
 
 
 def _date(text: str) -> str:
+    """A calendar date written exactly ``YYYY-MM-DD`` (Python also reads ``YYYYMMDD``: refused)."""
     try:
+        if len(text) != 10 or text[4] != "-" or text[7] != "-":
+            raise ValueError(text)
         return dt.date.fromisoformat(text).isoformat()
     except ValueError:
         raise argparse.ArgumentTypeError(f"{text!r} is not a date of the form YYYY-MM-DD") from None
+
+
+def _seconds(text: str) -> float:
+    """A lock timeout: a non-negative, finite number of seconds."""
+    try:
+        value = float(text)
+    except ValueError:
+        value = -1.0
+    if not (0.0 <= value < float("inf")):
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number of seconds (0 or more)")
+    return value
 
 
 def add_ledger_commands(commands) -> None:
@@ -31,14 +45,14 @@ def add_ledger_commands(commands) -> None:
     verdict.add_argument("--reject", action="store_true", help="keep the rule in force")
     verdict.add_argument("--by", required=True, help="the reviewer's name")
     verdict.add_argument("--note", default="", help="why (recorded in the ledger)")
-    verdict.add_argument("--lock-timeout", type=float, default=60.0)
+    verdict.add_argument("--lock-timeout", type=_seconds, default=60.0)
 
     revoke = commands.add_parser("revoke", help="withdraw the rule an already published night put in force (human override)")
     revoke.add_argument("--out", required=True, type=Path)
     revoke.add_argument("--date", required=True, type=_date)
     revoke.add_argument("--by", required=True)
     revoke.add_argument("--note", required=True, help="why the mechanism's rule is overridden")
-    revoke.add_argument("--lock-timeout", type=float, default=60.0)
+    revoke.add_argument("--lock-timeout", type=_seconds, default=60.0)
 
     in_force = commands.add_parser("in-force", help="show the rule in force")
     in_force.add_argument("--out", required=True, type=Path)
