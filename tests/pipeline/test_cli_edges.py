@@ -86,3 +86,9 @@ def test_apply_refuses_a_missing_folder_and_repeated_item_ids(published):
     pq.write_table(pa.concat_tables([table, table.slice(4, 1)]), repeated)  # its last row repeats row 5
     message = one_line_error(cli("apply", "--out", str(out), "--items", str(repeated), "--write", str(root / "r.parquet")))
     assert f"row {table.num_rows + 1}, column 'item_id'" in message
+
+
+def test_a_verdict_on_a_missing_out_folder_leaves_nothing_behind(tmp_path):
+    missing = tmp_path / "never-published"
+    message = one_line_error(cli("verdict", "--out", str(missing), "--date", DATE, "--approve", "--by", "Greta Voss"))
+    assert "no such out folder" in message and not missing.exists()

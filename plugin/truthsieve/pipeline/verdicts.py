@@ -205,7 +205,8 @@ def record_revocation(out: str | Path, batch_date: str, by: str, note: str, at: 
 def _record_decision(out: str | Path, batch_date: str, events, lock_timeout: float) -> dict:
     """Append ``events(entries, published decision bytes)`` under the date's lock, then bring
     review.json and the index up to date; returns the new in_force.json content."""
-    Path(out).mkdir(parents=True, exist_ok=True)
+    if not Path(out).is_dir():  # nothing was ever published there: leave no lock folder behind
+        raise VerdictError(f"{out}: no such out folder (no night was published there)")
     with date_lock(out, batch_date, lock_timeout):
         decision_bytes = _published_decision(out, batch_date)
         state, entries = _commit(out, lambda entries: events(entries, decision_bytes), lock_timeout)
