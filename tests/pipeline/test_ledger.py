@@ -233,3 +233,31 @@ def test_a_changed_aggregate_republication_does_not_keep_an_old_approval(tmp_pat
     with pytest.raises(VerdictError, match="not awaiting review"):
         record_verdict(out, "2026-11-02", True, "Wren", "", AT)  # an undecided aggregated night still refuses
     assert record_verdict(out, "2026-11-03", False, "Wren", "", AT)["rule"] == rule(14.0)
+
+
+def one_line_failure(result, *words) -> str:
+    assert result.returncode == 2 and "Traceback" not in result.stderr, (result.stdout, result.stderr)
+    message = result.stderr.strip()
+    assert len(message.splitlines()) == 1, message
+    for word in words:
+        assert word in message, message
+    return message
+
+
+def test_verify_of_a_missing_out_folder_fails(tmp_path):
+    one_line_failure(verify(tmp_path / "nowhere"), "no such out folder", "nowhere")
+    assert not (tmp_path / "nowhere").exists()  # verify creates nothing
+
+
+@pytest.mark.parametrize("gone", [[ledger.LEDGER], [ledger.IN_FORCE], [ledger.LEDGER, ledger.IN_FORCE]])
+def test_verify_fails_when_the_ledger_or_in_force_is_gone_beside_published_nights(six_lines, gone):
+    assert verify(six_lines).returncode == 0
+    for name in gone:
+        (six_lines / name).unlink()
+    one_line_failure(verify(six_lines), gone[0], "missing")
+
+
+def test_verify_names_a_night_whose_decision_was_edited_after_publishing(six_lines):
+    path = batch_output(six_lines, "2026-11-03") / "decision.json"
+    path.write_bytes(path.read_bytes().replace(b'"review"', b'"aggregate"'))
+    one_line_failure(verify(six_lines), "2026-11-03", "decision.json")
