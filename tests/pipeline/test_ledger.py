@@ -188,3 +188,76 @@ def test_concurrent_verdicts_screens_and_appends_never_interleave(tmp_path):
     assert len(entries) == 2 * 2 + 3 * 6 + 2 * 15 * 2
     assert sum(e["event"] == "verdict" for e in entries) == 6
     assert verify(out).returncode == 0
+
+
+def events_of(out: Path) -> list[dict]:
+    return [json.loads(line) for line in (out / "ledger.jsonl").read_text().splitlines()]
+
+
+def test_a_changed_republication_never_undoes_a_revocation_or_a_verdict(tmp_path):
+    """README: a re-screen that changes a decided night is flagged and the night awaits a
+    new verdict; an aggregate route does not put its rule back in force by itself."""
+    from truthsieve.pipeline.verdicts import record_revocation
+
+    out = tmp_path / "out"
+    publish_fake(out, "2026-11-02", "aggregate", 14.0)
+    publish_fake(out, "2026-11-03", "aggregate", 15.0)
+    assert record_revocation(out, "2026-11-03", "Wren", "farm flagged", AT)["rule"] == rule(14.0)
+    lines = len(events_of(out))
+    # identical re-publication (same decision sha256): the revocation stands, no flag
+    assert publish_fake(out, "2026-11-03", "aggregate", 15.0)["rule"] == rule(14.0)
+    assert "changed_after_verdict" not in [e["event"] for e in events_of(out)[lines:]]
+    # changed bytes, still routed aggregate: flagged, the revoked night's rule is NOT back
+    state = publish_fake(out, "2026-11-03", "aggregate", 15.5)
+    new = events_of(out)[-3:]
+    assert [e["event"] for e in new] == ["night_published", "changed_after_verdict", "in_force"]
+    assert new[-1]["action"] == "kept" and state["rule"] == rule(14.0) and state["since"] == "2026-11-02"
+    assert ledger.nights(events_of(out))["2026-11-03"].status == ledger.AWAITING
+    review = json.loads((batch_output(out, "2026-11-03") / "review.json").read_text())
+    assert review["status"] == "awaiting_review"
+    # the night takes a new verdict although its route is aggregate
+    state = record_verdict(out, "2026-11-03", True, "Wren", "checked again", AT)
+    assert state["rule"] == rule(15.5) and state["since"] == "2026-11-03" and state["event"]["kind"] == "verdict"
+    assert json.loads((batch_output(out, "2026-11-03") / "review.json").read_text())["status"] == "approved"
+
+
+def test_a_changed_aggregate_republication_does_not_keep_an_old_approval(tmp_path):
+    out = tmp_path / "out"
+    publish_fake(out, "2026-11-02", "aggregate", 14.0)
+    publish_fake(out, "2026-11-03", "review", 15.0)
+    assert record_verdict(out, "2026-11-03", True, "Wren", "", AT)["rule"] == rule(15.0)
+    assert publish_fake(out, "2026-11-03", "review", 15.0)["rule"] == rule(15.0)  # identical: approval stands
+    state = publish_fake(out, "2026-11-03", "aggregate", 16.0)  # changed, now routed aggregate
+    assert state["rule"] == rule(14.0) and state["since"] == "2026-11-02"
+    assert ledger.nights(events_of(out))["2026-11-03"].status == ledger.AWAITING
+    with pytest.raises(VerdictError, match="not awaiting review"):
+        record_verdict(out, "2026-11-02", True, "Wren", "", AT)  # an undecided aggregated night still refuses
+    assert record_verdict(out, "2026-11-03", False, "Wren", "", AT)["rule"] == rule(14.0)
+
+
+def one_line_failure(result, *words) -> str:
+    assert result.returncode == 2 and "Traceback" not in result.stderr, (result.stdout, result.stderr)
+    message = result.stderr.strip()
+    assert len(message.splitlines()) == 1, message
+    for word in words:
+        assert word in message, message
+    return message
+
+
+def test_verify_of_a_missing_out_folder_fails(tmp_path):
+    one_line_failure(verify(tmp_path / "nowhere"), "no such out folder", "nowhere")
+    assert not (tmp_path / "nowhere").exists()  # verify creates nothing
+
+
+@pytest.mark.parametrize("gone", [[ledger.LEDGER], [ledger.IN_FORCE], [ledger.LEDGER, ledger.IN_FORCE]])
+def test_verify_fails_when_the_ledger_or_in_force_is_gone_beside_published_nights(six_lines, gone):
+    assert verify(six_lines).returncode == 0
+    for name in gone:
+        (six_lines / name).unlink()
+    one_line_failure(verify(six_lines), gone[0], "missing")
+
+
+def test_verify_names_a_night_whose_decision_was_edited_after_publishing(six_lines):
+    path = batch_output(six_lines, "2026-11-03") / "decision.json"
+    path.write_bytes(path.read_bytes().replace(b'"review"', b'"aggregate"'))
+    one_line_failure(verify(six_lines), "2026-11-03", "decision.json")

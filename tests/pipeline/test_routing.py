@@ -177,3 +177,30 @@ def test_min_valid_sources_above_one_lets_a_source_veto_by_staying_away(monkeypa
     default = config_for(instance, "constant", "random_dictator", instance.source_weights)
     ((truthful, best, _),) = best_deviation(instance, default, "X", [(1,)])
     assert best == truthful == Fraction(1, 2)
+
+
+def test_removing_a_stray_file_that_quarantined_a_source_revises_the_draw(tmp_path, monkeypatch):
+    """A misnamed file is not an input, but it quarantined its source: deleting it lets
+    the source join the lottery, so the night changed after a published draw."""
+    monkeypatch.delenv("TRUTHSIEVE_DRAW_KEY", raising=False)
+    inbox, out = tmp_path / "inbox", tmp_path / "out"
+    folder = write_batch(inbox, DATE, seed=3)
+    stray = folder / "source_id=east" / "labels.csv"
+    stray.write_text("item_id,label\nlot-00000,1\n")
+    config = load_config(write_config(tmp_path / "c.yaml"))
+    first = screen(inbox, DATE, config, out).decision
+    assert [q["source_id"] for q in first["quarantined"]] == ["east"]
+    assert "misnamed_label_file" in [e["code"] for e in first["errors"]]
+    assert "east" not in [e["source_id"] for e in first["mechanism"]["lottery"]]
+    published_bytes = (out / f"batch_date={DATE}" / "decision.json").read_bytes()
+    again = screen(inbox, DATE, config, out).decision  # identical re-screen: nothing changes
+    assert again["draw_revision"] == 0
+    assert (out / f"batch_date={DATE}" / "decision.json").read_bytes() == published_bytes
+
+    stray.unlink()
+    revised = screen(inbox, DATE, config, out).decision
+    assert "east" in [e["source_id"] for e in revised["mechanism"]["lottery"]]
+    assert revised["draw_revision"] == 1 and revised["route"] == "review"
+    assert "draw_revised" in [r["code"] for r in revised["reasons"] if r["blocking"]]
+    assert revised["draw"]["u"] == uniform_from_date(DEMO_DRAW_KEY, f"{DATE}#1") != first["draw"]["u"]
+    assert revised["earlier_draws"][0]["u"] == first["draw"]["u"]

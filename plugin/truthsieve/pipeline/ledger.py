@@ -17,7 +17,9 @@ Events (key ``event``):
 
 :func:`derive` turns the events into the rule in force; it is pure (no files, no clock).
 A night puts its drawn rule in force when its latest publication was aggregated, or was
-routed to review and approved; a revocation withdraws it. The rule in force is that of
+routed to review and approved; a revocation withdraws it. A night a person decided (a
+verdict or a revocation) whose latest publication has another decision sha256 awaits a
+new verdict, whatever its route: a re-screen never undoes a person's decision by itself. The rule in force is that of
 the latest such night (on or before ``as_of`` when given): later nights win, a rejected or
 undecided review night leaves the previous rule standing.
 """
@@ -157,12 +159,14 @@ def nights(entries: Sequence[Mapping]) -> dict[str, Night]:
         on_this = [h for h in human.get(date, []) if h["decision_sha256"] == pub["decision_sha256"]]
         verdicts = [h for h in on_this if h["event"] == "verdict"]
         revoked = [h for h in on_this if h["event"] == "revoked"]
+        # a person decided an earlier publication of this night, and it changed since
+        changed_after_human = bool(human.get(date)) and not on_this
         if revoked:
             status, by = REVOKED, revoked[-1]
-        elif pub["route"] == "aggregate":
-            status, by = AGGREGATED, None
         elif verdicts:
             status, by = (APPROVED if verdicts[-1]["decision"] == "approve" else REJECTED), verdicts[-1]
+        elif pub["route"] == "aggregate" and not changed_after_human:
+            status, by = AGGREGATED, None
         else:
             status, by = AWAITING, None
         out[date] = Night(date, status, pub["route"], pub.get("rule"), pub["decision_sha256"], pub["seq"], by)

@@ -108,6 +108,39 @@ def finish_demo(out: Path, inbox: Path | None = None) -> None:
     print(_describe(verdicts.in_force(out)))
 
 
+def verify_out_folder(out: Path) -> list[dict]:
+    """The checked ledger entries of ``out``, after checking that the out folder exists, that
+    the ledger and ``in_force.json`` are there when nights are published, and that every
+    published ``decision.json`` has the sha256 of its night's latest ``night_published``.
+
+    :raises InputError: one line naming what is missing or which night differs.
+    """
+    import hashlib
+
+    from truthsieve.exceptions import LedgerBrokenError
+    from truthsieve.pipeline import ledger
+    from truthsieve.pipeline.outputs import batch_location, published_dates
+
+    if not Path(out).is_dir():
+        raise InputError(f"no such out folder: {out}")
+    dates = published_dates(out)
+    for name in (ledger.LEDGER, ledger.IN_FORCE):
+        if dates and not (Path(out) / name).is_file():
+            raise LedgerBrokenError(f"{name} is missing from {out}, which holds {len(dates)} published nights")
+    entries = ledger.read_ledger(out)
+    latest = {e["date"]: e["decision_sha256"] for e in entries if e["event"] == "night_published"}
+    for date in dates:
+        sha = hashlib.sha256((batch_location(out, date) / "decision.json").read_bytes()).hexdigest()
+        if date not in latest:
+            raise LedgerBrokenError(f"night {date}: batch_date={date}/decision.json is published but the ledger has no night_published for it")
+        if sha != latest[date]:
+            raise LedgerBrokenError(
+                f"night {date}: batch_date={date}/decision.json has sha256 {sha[:12]}..., not the {latest[date][:12]}... "
+                "the ledger's latest night_published records (edited after publishing)"
+            )
+    return entries
+
+
 def run_ledger_command(args) -> int:
     from truthsieve.pipeline import ledger, verdicts
 
@@ -134,10 +167,11 @@ def run_ledger_command(args) -> int:
         print(f"{result['rows']} items labelled into {result['written']}")
         print(_describe(result))
         return 0
-    entries = ledger.read_ledger(args.out)
     if args.verify:
-        print(f"{ledger.LEDGER}: {len(entries)} lines, hash chain intact")
+        entries = verify_out_folder(args.out)
+        print(f"{ledger.LEDGER}: {len(entries)} lines, hash chain intact, every published night's decision.json matches it")
         return 0
+    entries = ledger.read_ledger(args.out)
     for e in entries:
         detail = {k: v for k, v in e.items() if k not in ("seq", "prev", "sha256", "event", "date", "rule", "puts_in_force", "withdrawn_rule")}
         print(f"{e['seq']:>5}  {e['event']:<22} {e.get('date') or e.get('since') or '-':<10}  {json.dumps(detail, sort_keys=True)}")

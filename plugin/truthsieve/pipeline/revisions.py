@@ -5,6 +5,9 @@ resubmission, a withdrawn folder) that reused it while the lottery's membership
 changed would let a source that saw ``u`` pick the entry ``u`` selects. So:
 
 * a re-screen with the same inputs (every input file's path and sha256), the same
+  errors and notes (code, file, row, column: a stray or misnamed file that quarantined
+  a source is not an input, but removing it changes the lottery's membership), the
+  same quarantined sources, the same
   configuration (``config_sha256``) and the same key gives the same revision and a
   byte-identical ``decision.json``;
 * a re-screen that differs, after a draw was published, becomes revision ``r + 1``:
@@ -38,6 +41,31 @@ def _input_digests(inputs) -> list[tuple[str, str]]:
     return sorted((f["path"], f["sha256"]) if isinstance(f, Mapping) else (f.path, f.sha256) for f in inputs)
 
 
+def _entry(e, file: str) -> tuple[str, str, str, str]:
+    """(code, path, row, column) of an error (``file``) or a note (``path``)."""
+    d = e if isinstance(e, Mapping) else e.as_dict()
+    return (str(d.get("code") or d.get("rule")), str(d.get(file)), repr(d.get("row")), repr(d.get("column")))
+
+
+def _screened(previous: Mapping | None, intake) -> tuple:
+    """Everything of a night that can change its lottery's membership or content, except the
+    config and key: inputs, errors, notes and quarantined sources. From a published
+    decision (``intake`` None) or from tonight's intake."""
+    if intake is None:
+        inputs, errors, notes = previous.get("inputs", []), previous.get("errors", []), previous.get("notes", [])
+        quarantined = [q.get("source_id") for q in previous.get("quarantined", [])]
+    else:
+        inputs, errors = intake.inputs, intake.errors
+        notes = [n for check in [intake.items, *intake.sources] for n in check.notes]
+        quarantined = [s.source_id for s in intake.quarantined] + ([None] if not intake.items.valid else [])
+    return (
+        _input_digests(inputs),
+        sorted(_entry(e, "file") for e in errors),
+        sorted(_entry(n, "path") for n in notes),
+        sorted(repr(q) for q in quarantined),
+    )
+
+
 def draw_revision(
     previous: Mapping | None, intake, config_sha256: str, fingerprint: str
 ) -> tuple[int, list[dict]]:
@@ -55,7 +83,7 @@ def draw_revision(
     published = previous.get("draw")
     same = (
         previous.get("config_sha256") == config_sha256
-        and _input_digests(previous.get("inputs", [])) == _input_digests(intake.inputs)
+        and _screened(previous, None) == _screened(None, intake)
         and (published is None or published.get("key_fingerprint") == fingerprint)
     )
     if same or published is None:

@@ -89,15 +89,20 @@ def _sync_review_file(out: str | Path, batch_date: str, entries: Sequence[Mappin
     """Make ``review.json``'s status match the ledger (call under the date lock)."""
     path = batch_output(out, batch_date) / "review.json"
     night = nights(entries).get(batch_date)
-    if night is None or not path.is_file():
+    if night is None:
         return
-    review = json.loads(path.read_text())
+    if path.is_file():
+        review = json.loads(path.read_text())
+    elif night.status == AWAITING and night.route == "aggregate":  # changed after a person's decision
+        review = {"batch_date": batch_date, "blocking_reasons": [], "changed_after_verdict": True}
+    else:
+        return
     by = night.decided_by
     review["status"] = night.status
     review["verdict"] = None if by is None else {k: by.get(k) for k in ("event", "decision", "by", "note", "at", "seq")}
     review["note"] = REVIEW_NOTE
     data = dumps_decision(review)
-    if path.read_bytes() != data:
+    if not path.is_file() or path.read_bytes() != data:
         write_atomic(path, data)
 
 
