@@ -84,7 +84,7 @@ def test_cut_bin_risks_equal_dense_predictions_on_all_and_on_a_subset(seed, kind
 @pytest.mark.parametrize("seed", range(6))
 def test_a_source_analysed_alone_equals_the_batch_loop_bit_for_bit(seed):
     # Airflow maps one task per source (no shared context); the CLI shares it.
-    from truthsieve.core import incentives
+    from truthsieve.core.incentives import incentives
 
     matrix, rule_class = random_batch(seed, "threshold")
     consensus = fit_consensus(matrix, rule_class)
