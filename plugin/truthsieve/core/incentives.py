@@ -55,6 +55,7 @@ import numpy as np
 from truthsieve.core.labels import TIE_TOLERANCE, LabelMatrix
 from truthsieve.core.mechanisms import ConsensusFit
 from truthsieve.core.rules import RuleClass, ThresholdRules, first_minimum
+from truthsieve.core.search import smallest_satisfying
 
 DEFAULT_THRESHOLD_BUDGET = 64
 
@@ -191,18 +192,7 @@ def cheapest_lie(
     ordered_weights = matrix.item_weights[source.items[ordered]]
     prefix_weight = np.cumsum(ordered_weights)
     low = int(np.searchsorted(prefix_weight, lower - TIE_TOLERANCE, side="left"))
-    high, step = len(ordered), 1
-    while low + step < high:
-        if reaches_with(low + step):
-            high = low + step
-            break
-        low, step = low + step, step * 2
-    while high - low > 1:
-        middle = (low + high) // 2
-        if reaches_with(middle):
-            high = middle
-        else:
-            low = middle
+    high = smallest_satisfying(reaches_with, low, len(ordered))  # every flip made reaches
     upper = float(ordered_weights[:high].sum())
     return float(lower), max(upper, float(lower))
 

@@ -7,6 +7,8 @@ from statistics import NormalDist
 
 import numpy as np
 
+from truthsieve.core.search import smallest_satisfying
+
 
 def wilson_interval(successes: float, trials: float, confidence: float = 0.95) -> tuple[float, float]:
     """Wilson score interval for a proportion.
@@ -102,14 +104,4 @@ def items_needed(
         tau = threshold_growth(threshold_features, 2 * m)
         return (4.0 + math.sqrt(math.log(tau))) / (per_source * math.sqrt(2.0 * m)) <= epsilon
 
-    high = 1
-    while not enough(high):
-        high *= 2
-    low = high // 2  # not enough (or 0)
-    while high - low > 1:
-        middle = (low + high) // 2
-        if enough(middle):
-            high = middle
-        else:
-            low = middle
-    return high
+    return smallest_satisfying(enough, 0)
