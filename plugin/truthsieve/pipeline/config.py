@@ -12,6 +12,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_valida
 
 from truthsieve.core.mechanisms import MECHANISMS
 from truthsieve.core.source_checks import FLAG_CODES, FlagThresholds
+from truthsieve.pipeline.classes import ClassAlphabet, check_class_names
 from truthsieve.exceptions import ConfigError
 
 SOURCE_ID_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$"
@@ -179,6 +180,16 @@ class Config(_Strict):
     routing: RoutingPolicy = Field(default_factory=RoutingPolicy)
     analysis: AnalysisSettings = Field(default_factory=AnalysisSettings)
     alerts: AlertSettings = Field(default_factory=AlertSettings)
+    classes: list[str] | None = Field(None, description="class names, index order; default two classes 0/1 (see pipeline/classes.py)")
+
+    @field_validator("classes")
+    @classmethod
+    def _usable_class_names(cls, value):
+        return value if value is None else check_class_names(value)
+
+    @property
+    def class_alphabet(self) -> ClassAlphabet:
+        return ClassAlphabet.from_config(self.classes)
 
     @model_validator(mode="after")
     def _consistent(self):
@@ -197,7 +208,8 @@ class Config(_Strict):
 
     def digest(self) -> str:
         """``sha256:`` of the canonical JSON of the validated configuration (every default filled in)."""
-        canonical = json.dumps(self.model_dump(mode="json"), sort_keys=True, separators=(",", ":"), ensure_ascii=True)
+        dump = self.model_dump(mode="json", exclude={"classes"} if self.classes is None else None)  # binary digests unchanged
+        canonical = json.dumps(dump, sort_keys=True, separators=(",", ":"), ensure_ascii=True)
         return "sha256:" + hashlib.sha256(canonical.encode()).hexdigest()
 
     @property
