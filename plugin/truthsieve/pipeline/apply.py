@@ -5,6 +5,13 @@ listed rule's ``rule__<name>`` column), labels them in one vectorised pass over 
 arrays, and writes ``item_id``, ``label`` and ``rule`` (the rule's JSON form, dictionary
 encoded so it costs one value) to Parquet through a temporary file and a rename. The
 file's schema metadata carries the whole of ``in_force.json``: rule, since, ledger line.
+
+Class names or indices (``--labels`` on the command line, ``labels`` here): ``indices``
+(the default) writes ``label`` as int16 class indices, byte for byte as before K classes;
+``names`` writes each class's name from the configuration's ``classes`` (dictionary
+encoded: the names are stored once). With an alphabet given (``--config``), the rule's
+classes and a listed rule's ``rule__<name>`` values are checked against ``0..K-1`` and
+the file's metadata also carries ``truthsieve.classes`` (the names, in index order).
 """
 
 from __future__ import annotations
@@ -21,6 +28,7 @@ import pyarrow.parquet as pq
 
 from truthsieve.core.rules import RULE_COLUMN_PREFIX
 from truthsieve.exceptions import InputError
+from truthsieve.pipeline.classes import ClassAlphabet, class_name_array, decode_rule_column
 from truthsieve.pipeline.verdicts import in_force
 
 
@@ -45,9 +53,42 @@ def _first_bad_row(mask) -> int:
     return int(np.flatnonzero(np.asarray(mask))[0]) + 1
 
 
-def label_items(table: pa.Table, rule: dict, source: str = "items") -> pa.Array:
+LABEL_FORMS = ("indices", "names")
+
+
+def _rule_classes(rule: dict) -> list[int]:
+    if rule["kind"] == "constant":
+        return [int(rule["label"])]
+    if rule["kind"] == "threshold":
+        return [int(rule["above"]), int(rule.get("below", 1 - int(rule["above"])))]
+    return []
+
+
+def check_rule_classes(rule: dict, classes: ClassAlphabet, since: str | None = None) -> None:
+    """Refuse a rule naming a class the alphabet does not have (a configuration of another batch)."""
+    outside = [k for k in _rule_classes(rule) if not 0 <= k < classes.count]
+    if outside:
+        when = f" since {since}" if since else ""
+        raise InputError(
+            f"the rule in force{when} gives class {outside[0]}, but the configuration has {classes.count} classes "
+            f"(0..{classes.count - 1}); is --config the one its nights were screened with?"
+        )
+
+
+def _checked_listed(table: pa.Table, rule: dict, classes: ClassAlphabet, source: str) -> pa.Array:
+    name = _needed_column(rule)
+    indices, errors = decode_rule_column(source, table.column(name), name, classes)
+    if errors:
+        first = errors[0]
+        where = f"row {first.row}, " if first.row is not None else ""
+        raise InputError(f"{source}: {where}column {name!r}: {first.message}")
+    return pa.array(indices.astype(np.int16))
+
+
+def label_items(table: pa.Table, rule: dict, source: str = "items", classes: ClassAlphabet | None = None) -> pa.Array:
     """The rule's label of every row of ``table`` (int16 class indices).
 
+    :param classes: when given, a listed rule's column is checked against ``0..K-1``.
     :raises InputError: naming ``source``, column and first bad row.
     """
     n = table.num_rows
@@ -57,6 +98,8 @@ def label_items(table: pa.Table, rule: dict, source: str = "items") -> pa.Array:
     column = table.column(column_name)
     if column.null_count:
         raise InputError(f"{source}: row {_first_bad_row(column.is_null().to_numpy(zero_copy_only=False))}, column {column_name!r}: null value")
+    if rule["kind"] == "listed" and classes is not None:
+        return _checked_listed(table, rule, classes, source)
     if rule["kind"] == "listed":
         if not (pa.types.is_boolean(column.type) or pa.types.is_integer(column.type)):
             raise InputError(f"{source}: column {column_name!r} must be bool or integer class indices, not {column.type}")
@@ -72,12 +115,26 @@ def label_items(table: pa.Table, rule: dict, source: str = "items") -> pa.Array:
     return pa.array(np.where(values > rule["cut"], above, below).astype(np.int16))
 
 
-def apply_rule(out: str | Path, items_path: str | Path, write_path: str | Path, as_of: str | None = None) -> dict:
+def apply_rule(
+    out: str | Path,
+    items_path: str | Path,
+    write_path: str | Path,
+    as_of: str | None = None,
+    classes: ClassAlphabet | None = None,
+    labels: str = "indices",
+) -> dict:
     """Label ``items_path`` with the rule in force (on night ``as_of`` if given) and write
     ``write_path``. Returns the rule's identity (``in_force.json``'s content) and the row count.
 
-    :raises InputError: no rule in force, a missing column, an unreadable file, or writing over the input.
+    :param classes: the configuration's class alphabet; checks the rule's classes against it.
+    :param labels: ``indices`` (int16, the default) or ``names`` (the classes' names; needs ``classes``).
+    :raises InputError: no rule in force, a missing column, an unreadable file, writing over
+        the input, a class outside the alphabet, or ``names`` without an alphabet.
     """
+    if labels not in LABEL_FORMS:
+        raise InputError(f"labels must be one of {', '.join(LABEL_FORMS)}, not {labels!r}")
+    if labels == "names" and classes is None:
+        raise InputError("writing class names needs the configuration (--config FILE), whose classes name them")
     items_path, write_path = Path(items_path), Path(write_path)
     state = in_force(out, as_of)
     if state["rule"] is None:
@@ -94,6 +151,8 @@ def apply_rule(out: str | Path, items_path: str | Path, write_path: str | Path, 
     except (OSError, pa.ArrowException) as error:
         raise InputError(f"{items_path}: cannot read it as Parquet ({error})") from None
     rule = state["rule"]
+    if classes is not None:
+        check_rule_classes(rule, classes, state.get("since"))
     needed = ["item_id"] + [c for c in [_needed_column(rule)] if c]
     missing = [c for c in needed if c not in schema.names]
     if missing:
@@ -111,11 +170,15 @@ def apply_rule(out: str | Path, items_path: str | Path, write_path: str | Path, 
         repeated = np.ones(len(codes), dtype=bool)
         repeated[np.unique(codes, return_index=True)[1]] = False
         raise InputError(f"{items_path}: row {_first_bad_row(repeated)}, column 'item_id': item id appears on an earlier row")
-    labels = label_items(table, rule, str(items_path))
+    indices = label_items(table, rule, str(items_path), classes)
+    written = class_name_array(indices.to_numpy(), classes) if labels == "names" else indices
     identity = json.dumps(rule, sort_keys=True)
     rule_column = pa.DictionaryArray.from_arrays(pa.array(np.zeros(table.num_rows, dtype=np.int32)), pa.array([identity]))
-    result = pa.table({"item_id": ids, "label": labels, "rule": rule_column})
-    result = result.replace_schema_metadata({"truthsieve.in_force": json.dumps(state, sort_keys=True)})
+    result = pa.table({"item_id": ids, "label": written, "rule": rule_column})
+    metadata = {"truthsieve.in_force": json.dumps(state, sort_keys=True)}
+    if classes is not None:
+        metadata["truthsieve.classes"] = json.dumps(list(classes.labels))
+    result = result.replace_schema_metadata(metadata)
     temporary = write_path.with_name(f".{write_path.name}.{uuid.uuid4().hex}.tmp")
     try:
         pq.write_table(result, temporary)

@@ -64,6 +64,8 @@ def add_ledger_commands(commands) -> None:
     apply.add_argument("--items", required=True, type=Path, help="items table (Parquet, the inbox's items schema)")
     apply.add_argument("--write", required=True, type=Path, help="Parquet file to write: item_id, label, rule")
     apply.add_argument("--as-of", type=_date, default=None, help="use the rule in force on this night")
+    apply.add_argument("--config", type=Path, default=None, help="configuration whose classes the labels use (checked against the rule)")
+    apply.add_argument("--labels", choices=("indices", "names"), default="indices", help="write class indices (default) or class names (needs --config)")
 
     ledger = commands.add_parser("ledger", help="check the ledger's hash chain, or list its events")
     ledger.add_argument("--out", required=True, type=Path)
@@ -163,7 +165,10 @@ def run_ledger_command(args) -> int:
     if args.command == "apply":
         from truthsieve.pipeline.apply import apply_rule
 
-        result = apply_rule(args.out, args.items, args.write, args.as_of)
+        from truthsieve.pipeline.config import load_config
+
+        classes = load_config(args.config).class_alphabet if args.config else None
+        result = apply_rule(args.out, args.items, args.write, args.as_of, classes, args.labels)
         print(f"{result['rows']} items labelled into {result['written']}")
         print(_describe(result))
         return 0
