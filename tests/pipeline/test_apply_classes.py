@@ -77,9 +77,12 @@ def test_a_listed_value_outside_the_classes_is_refused_naming_file_row_and_colum
 
 
 def test_a_rule_of_a_class_the_configuration_lacks_is_refused(tmp_path):
-    out, source = grading_night(tmp_path, {"kind": "constant", "label": 3}, moisture_pct=[13.0])
-    with pytest.raises(InputError, match="gives class 3, but the configuration has 2 classes"):
+    # class 2 is the first index outside 0..1
+    out, source = grading_night(tmp_path, {"kind": "constant", "label": 2}, moisture_pct=[13.0])
+    with pytest.raises(InputError, match="gives class 2, but the configuration has 2 classes"):
         apply_rule(out, source, tmp_path / "x.parquet", classes=ClassAlphabet(("reject", "accept")))
+    apply_rule(out, source, tmp_path / "x.parquet", classes=ClassAlphabet(("reject", "feed", "milling")), labels="names")
+    assert pq.read_table(tmp_path / "x.parquet").column("label").to_pylist() == ["milling"]
 
 
 def test_names_need_an_alphabet(tmp_path):

@@ -140,6 +140,20 @@ def test_honest_graders_agree_with_the_truth_at_their_designed_rate(generated):
         assert abs(off - total * rate) <= 4 * math.sqrt(total * rate * (1 - rate)), (source, off, total)
 
 
+def test_slips_from_the_middle_classes_go_up_and_down_alike(generated):
+    _, nights = generated
+    up = middle = 0
+    for items, labels in nights.values():
+        truth = story_truth(items["moisture_pct"].to_numpy(), items["test_weight_kg_hl"].to_numpy())
+        for source in HONEST_RATES:
+            if isinstance(labels[source], np.ndarray):
+                slip = (labels[source] != truth) & np.isin(truth, [FEED, MILLING])
+                middle += int(slip.sum())
+                up += int((slip & (labels[source] > truth)).sum())
+    # each slip goes up with probability 1/2: within 4 standard deviations of middle / 2
+    assert middle >= 50 and abs(up - middle / 2) <= 4 * math.sqrt(middle / 4), (up, middle)
+
+
 def test_the_same_seed_gives_the_same_bytes_and_another_seed_other_lots(tmp_path):
     one, two, other = tmp_path / "one", tmp_path / "two", tmp_path / "other"
     demo_grades.generate_inbox(one)
