@@ -76,7 +76,8 @@ class DawidSkeneFit:
         if self.n_classes == 2:
             # The binary formula, term for term: binary numbers stay bit-identical.
             return (self.sensitivity + self.specificity) / 2.0
-        return self.recall.mean(axis=1)
+        mean: FloatArray = self.recall.mean(axis=1)
+        return mean
 
     @property
     def balanced_accuracy(self) -> FloatArray:
