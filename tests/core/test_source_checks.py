@@ -68,6 +68,10 @@ def test_routing_policy_takes_every_threshold_from_the_registry():
         field = RoutingPolicy.model_fields[name]
         assert field.default == spec.default and field.description == spec.description
     assert RoutingPolicy(max_gain=0.1, min_kappa=-1).thresholds() == FlagThresholds(max_gain=0.1, min_kappa=-1.0)
+    # every configured value reaches the core: 0.5 is inside every threshold's bounds and no default
+    assert all(spec.default != 0.5 for name, spec in THRESHOLDS.items() if name != "min_kappa")
+    every = {name: 0.5 for name in THRESHOLDS} | {"min_kappa": 0.25}
+    assert RoutingPolicy(**every).thresholds().as_dict() == every
     # the registry's bounds are the configuration's bounds
     with pytest.raises(ValueError, match="min_kappa"):
         RoutingPolicy(min_kappa=-1.01)
