@@ -9,7 +9,15 @@ from sklearn.metrics import cohen_kappa_score
 from statsmodels.stats.inter_rater import aggregate_raters
 from statsmodels.stats.inter_rater import fleiss_kappa as statsmodels_fleiss
 
-from truthsieve.core.agreement import cohen_kappa, fleiss_kappa, krippendorff_alpha_nominal
+from truthsieve.core.agreement import (
+    batch_agreement,
+    category_counts,
+    cohen_kappa,
+    fleiss_kappa,
+    fleiss_kappa_of_labels,
+    krippendorff_alpha_nominal,
+    krippendorff_alpha_of_labels,
+)
 
 # The 10 subjects x 14 raters x 5 categories example widely reproduced from Fleiss' method
 # (e.g. the Wikipedia article "Fleiss' kappa"; values from memory): kappa = 0.210.
@@ -91,3 +99,116 @@ def test_krippendorff_alpha_matches_reference_package(seed):
     ratings[rng.random((5, 40)) < 0.3] = np.nan
     expected = krippendorff.alpha(reliability_data=ratings, level_of_measurement="nominal")
     assert krippendorff_alpha_nominal(ratings) == pytest.approx(expected, abs=1e-10)
+
+
+# ---- K categories through the class-index path (labels 0..K-1, -1 or a mask for missing) ----
+
+def raters_from_counts(counts: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+    """A raters x items matrix of class indices whose per-item counts are ``counts``
+    (each item's raters shuffled, which no agreement statistic may notice)."""
+    columns = [rng.permutation(np.repeat(np.arange(counts.shape[1]), row)) for row in counts]
+    return np.stack(columns, axis=1)
+
+
+def test_fleiss_kappa_worked_example_through_the_class_index_path():
+    # The 5-category worked example above (10 subjects, 14 raters; the Wikipedia article
+    # "Fleiss' kappa", Wikipedia, section "Worked example", values from memory), now as
+    # 14 raters' class indices 0..4. By hand: column totals 20, 28, 39, 21, 32 of 140, so
+    # P_e = sum p_k^2 = 0.212755; mean P_j = 0.378022; kappa = 0.165267 / 0.787245 = 0.2099.
+    labels = raters_from_counts(FLEISS_WORKED_EXAMPLE, np.random.default_rng(7))
+    assert labels.shape == (14, 10)
+    np.testing.assert_array_equal(category_counts(labels, n_classes=5), FLEISS_WORKED_EXAMPLE)
+    kappa = fleiss_kappa_of_labels(labels, n_classes=5)
+    assert kappa == pytest.approx(0.2099, abs=5e-5)
+    assert kappa == pytest.approx(statsmodels_fleiss(FLEISS_WORKED_EXAMPLE), abs=1e-12)
+    # statsmodels' own table from the raw ratings (items x raters) agrees as well
+    table, _ = aggregate_raters(labels.T, n_cat=5)
+    assert kappa == pytest.approx(statsmodels_fleiss(table), abs=1e-12)
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_fleiss_kappa_matches_statsmodels_on_random_four_class_labels(seed):
+    rng = np.random.default_rng(seed)
+    truth = rng.integers(0, 4, 60)
+    labels = np.where(rng.random((5, 60)) < 0.6, truth, rng.integers(0, 4, (5, 60)))
+    table, _ = aggregate_raters(labels.T, n_cat=4)
+    assert fleiss_kappa_of_labels(labels, n_classes=4) == pytest.approx(statsmodels_fleiss(table), abs=1e-12)
+    # a missing label makes the counts unequal: Fleiss' kappa is then undefined
+    labels[2, 5] = -1
+    assert fleiss_kappa_of_labels(labels, n_classes=4) is None
+
+
+def test_krippendorff_published_example_through_the_class_index_path():
+    # The 0.743 example above ("Computing Krippendorff's Alpha-Reliability", University of
+    # Pennsylvania, 2011), values 1..5 as class indices 0..4 and -1 for missing.
+    m = -1
+    labels = np.array(
+        [
+            [0, 1, 2, 2, 1, 0, 3, 0, 1, m, m, m],
+            [0, 1, 2, 2, 1, 1, 3, 0, 1, 4, m, 2],
+            [m, 2, 2, 2, 1, 2, 3, 1, 1, 4, 0, m],
+            [0, 1, 2, 2, 1, 3, 3, 0, 1, 4, 0, m],
+        ]
+    )
+    assert krippendorff_alpha_of_labels(labels, n_classes=5) == pytest.approx(0.743, abs=5e-4)
+
+
+@pytest.mark.parametrize("seed", range(10))
+def test_krippendorff_alpha_matches_reference_package_with_four_classes_and_missing_values(seed):
+    rng = np.random.default_rng(100 + seed)
+    truth = rng.integers(0, 4, 50)
+    labels = np.where(rng.random((6, 50)) < 0.65, truth, rng.integers(0, 4, (6, 50)))
+    labelled = rng.random((6, 50)) >= 0.35
+    ratings = np.where(labelled, labels.astype(float), np.nan)
+    expected = krippendorff.alpha(reliability_data=ratings, level_of_measurement="nominal", value_domain=[0, 1, 2, 3])
+    assert krippendorff_alpha_nominal(ratings) == pytest.approx(expected, abs=1e-10)
+    assert krippendorff_alpha_of_labels(labels, labelled, n_classes=4) == pytest.approx(expected, abs=1e-10)
+    # -1 for missing means the same as the mask
+    assert krippendorff_alpha_of_labels(np.where(labelled, labels, -1), n_classes=4) == pytest.approx(expected, abs=1e-10)
+
+
+@pytest.mark.parametrize("seed", range(10))
+def test_cohen_kappa_matches_scikit_learn_with_three_classes(seed):
+    rng = np.random.default_rng(200 + seed)
+    a = rng.integers(0, 3, 300)
+    b = np.where(rng.random(300) < 0.6, a, rng.integers(0, 3, 300))
+    assert cohen_kappa(a, b, n_classes=3) == pytest.approx(cohen_kappa_score(a, b), abs=1e-12)
+    # -1 (missing) on either side drops the pair
+    a_missing = np.where(rng.random(300) < 0.2, -1, a)
+    present = a_missing >= 0
+    assert cohen_kappa(a_missing, b, n_classes=3) == pytest.approx(cohen_kappa_score(a[present], b[present]), abs=1e-12)
+
+
+def test_cohen_kappa_three_class_table_by_hand():
+    # Agreement table (rows first rater, columns second) [[10, 2, 0], [3, 8, 1], [0, 2, 4]], 30 items.
+    # By hand: p_o = 22/30; row shares 12, 12, 6 /30, column shares 13, 12, 5 /30;
+    # p_e = (156 + 144 + 30) / 900 = 330/900; kappa = (660/900 - 330/900) / (570/900) = 330/570 = 0.578947.
+    table = [[10, 2, 0], [3, 8, 1], [0, 2, 4]]
+    first = np.concatenate([np.full(table[r][c], r) for r in range(3) for c in range(3)])
+    second = np.concatenate([np.full(table[r][c], c) for r in range(3) for c in range(3)])
+    assert cohen_kappa(first, second, n_classes=3) == pytest.approx(330 / 570, abs=1e-12)
+
+
+def test_binary_numbers_do_not_depend_on_whether_k_is_given():
+    # K = 2 must stay bit-identical to the path the binary decision.json was made with.
+    rng = np.random.default_rng(5)
+    labels = rng.integers(0, 2, (4, 80)).astype(np.int8)
+    labelled = rng.random((4, 80)) < 0.8
+    a, b = labels[0], labels[1]
+    assert cohen_kappa(a, b, n_classes=2) == cohen_kappa(a, b)
+    ratings = np.where(labelled, labels.astype(np.float64), np.nan)
+    ones = (labelled & (labels == 1)).sum(axis=0)
+    zeros = (labelled & (labels == 0)).sum(axis=0)
+    full = np.ones_like(labelled)
+    assert batch_agreement(labels, labelled) == (krippendorff_alpha_nominal(ratings), None)
+    assert batch_agreement(labels, full)[1] == fleiss_kappa(np.stack([(labels == 0).sum(axis=0), (labels == 1).sum(axis=0)], axis=1))
+    np.testing.assert_array_equal(category_counts(labels, labelled), np.stack([zeros, ones], axis=1))
+
+
+def test_labels_outside_the_classes_are_an_error():
+    with pytest.raises(ValueError, match="not a class index in 0..2"):
+        cohen_kappa(np.array([0, 1, 3]), np.array([0, 1, 2]), n_classes=3)
+    with pytest.raises(ValueError, match="not a class index in 0..3"):
+        category_counts(np.array([[0, 4], [1, 2]]), n_classes=4)
+    with pytest.raises(ValueError, match="at least 2"):
+        category_counts(np.array([[0, 0]]), n_classes=1)

@@ -1,31 +1,64 @@
-"""Agreement between sources: Cohen's kappa, Fleiss' kappa, Krippendorff's alpha (nominal)."""
+"""Agreement between sources for K categories: Cohen's kappa, Fleiss' kappa, Krippendorff's
+nominal alpha.
+
+Labels are class indices ``0..K-1``; a missing label is marked by a mask or by ``-1``.
+``K`` is given explicitly (default 2). The statistics themselves only depend on the
+categories that occur, so a class nobody used adds nothing; ``K`` is there to check the
+labels and to lay out the count table.
+"""
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
+import numpy.typing as npt
+
+from truthsieve.core.dawid_skene import observed_mask
 
 
-def cohen_kappa(first: np.ndarray, second: np.ndarray) -> float | None:
-    """Cohen's kappa of two label vectors on the same items (unweighted).
+def cohen_kappa(first: npt.ArrayLike, second: npt.ArrayLike, n_classes: int | None = None) -> float | None:
+    """Cohen's kappa of two label vectors on the same items (unweighted, K categories).
 
     ``kappa = (p_o - p_e) / (1 - p_e)`` with observed agreement ``p_o`` and chance
     agreement ``p_e = sum_k p_first(k) p_second(k)`` ("A coefficient of agreement
-    for nominal scales", Educational and Psychological Measurement 20, 1960). None when
-    undefined (no items, or ``p_e = 1``: both raters used one and the same label).
+    for nominal scales", Educational and Psychological Measurement 20, 1960). Items where
+    either label is ``-1`` (missing) are left out. None when undefined (no items, or
+    ``p_e = 1``: both raters used one and the same label).
+
+    :param n_classes: ``K``; when given, labels outside ``0..K-1`` are an error and the
+        categories are ``0..K-1``; when None, the categories are the values that occur.
     """
-    first, second = np.asarray(first), np.asarray(second)
-    if len(first) == 0:
+    a, b = np.asarray(first), np.asarray(second)
+    both = (a >= 0) & (b >= 0)
+    if not both.all():
+        a, b = a[both], b[both]
+    if len(a) == 0:
         return None
-    categories = np.union1d(first, second)
-    observed = float(np.mean(first == second))
-    chance = float(sum(np.mean(first == k) * np.mean(second == k) for k in categories))
+    if n_classes is None:
+        categories: npt.NDArray[Any] = np.union1d(a, b)
+    else:
+        observed_mask(np.concatenate([a, b]), None, n_classes)
+        categories = np.arange(n_classes)
+    observed = float(np.mean(a == b))
+    chance = float(sum(np.mean(a == k) * np.mean(b == k) for k in categories))
     if chance >= 1.0:
         return None
     return (observed - chance) / (1.0 - chance)
 
 
-def fleiss_kappa(counts: np.ndarray) -> float | None:
-    """Fleiss' kappa from an items x categories table of label counts.
+def category_counts(labels: npt.ArrayLike, labelled: npt.ArrayLike | None = None, n_classes: int = 2) -> npt.NDArray[np.int64]:
+    """``(m, K)`` table: how many sources gave item ``j`` class ``k``.
+
+    :param labels: ``(n, m)`` class indices (sources x items); ``-1`` marks a missing label
+        when ``labelled`` is None.
+    """
+    values, mask = observed_mask(labels, labelled, n_classes)
+    return np.stack([(mask & (values == k)).sum(axis=0) for k in range(n_classes)], axis=1)
+
+
+def fleiss_kappa(counts: npt.ArrayLike) -> float | None:
+    """Fleiss' kappa from an items x categories table of label counts (any number of categories).
 
     Every item must carry the same number of labels ``r``; ``P_j`` is the agreement on
     item ``j``, ``p_k`` the overall share of category ``k``:
@@ -33,35 +66,41 @@ def fleiss_kappa(counts: np.ndarray) -> float | None:
     agreement among many raters", Psychological Bulletin 76(5), 1971). None when rows
     differ in count, fewer than two labels per item, or chance agreement is 1.
     """
-    counts = np.asarray(counts, dtype=np.float64)
-    raters = counts.sum(axis=1)
-    if len(counts) == 0 or not np.all(raters == raters[0]) or raters[0] < 2:
+    table = np.asarray(counts, dtype=np.float64)
+    raters = table.sum(axis=1)
+    if len(table) == 0 or not np.all(raters == raters[0]) or raters[0] < 2:
         return None
     r = raters[0]
-    per_item = ((counts * counts).sum(axis=1) - r) / (r * (r - 1))
-    shares = counts.sum(axis=0) / counts.sum()
+    per_item = ((table * table).sum(axis=1) - r) / (r * (r - 1))
+    shares = table.sum(axis=0) / table.sum()
     chance = float((shares**2).sum())
     if chance >= 1.0:
         return None
     return (float(per_item.mean()) - chance) / (1.0 - chance)
 
 
-def krippendorff_alpha_nominal(ratings: np.ndarray) -> float | None:
+def fleiss_kappa_of_labels(labels: npt.ArrayLike, labelled: npt.ArrayLike | None = None, n_classes: int = 2) -> float | None:
+    """:func:`fleiss_kappa` of a sources x items matrix of class indices (see :func:`category_counts`)."""
+    return fleiss_kappa(category_counts(labels, labelled, n_classes))
+
+
+def krippendorff_alpha_nominal(ratings: npt.ArrayLike) -> float | None:
     """Krippendorff's alpha for nominal data; ``ratings`` is raters x units with NaN for missing.
 
     Built from the coincidence matrix: each unit with ``m_u >= 2`` values adds
     ``1 / (m_u - 1)`` for every ordered pair of values from different raters.
     With ``n`` pairable values, ``n_c`` the coincidence marginals and ``o_cc`` the
     diagonal, ``alpha = 1 - (n - 1) (n - sum o_cc) / (n^2 - sum n_c^2)`` ("Computing Krippendorff's
-    Alpha-Reliability", University of Pennsylvania, 2011). None when no unit has two
-    values or only one value occurs.
+    Alpha-Reliability", University of Pennsylvania, 2011). Any number of distinct values;
+    a value nobody used adds nothing, so only the values that occur are tabled. None when
+    no unit has two values or only one value occurs.
     """
-    ratings = np.asarray(ratings, dtype=np.float64)
-    values = np.unique(ratings[~np.isnan(ratings)])
+    table = np.asarray(ratings, dtype=np.float64)
+    values = np.unique(table[~np.isnan(table)])
     if len(values) == 0:
         return None
     # counts[u, c]: how many raters gave unit u the value c
-    counts = np.stack([(ratings == v).sum(axis=0) for v in values], axis=1).astype(np.float64)
+    counts = np.stack([(table == v).sum(axis=0) for v in values], axis=1).astype(np.float64)
     pairable = counts.sum(axis=1)
     counts = counts[pairable >= 2]
     pairable = pairable[pairable >= 2]
@@ -76,3 +115,21 @@ def krippendorff_alpha_nominal(ratings: np.ndarray) -> float | None:
         return None
     observed = total - np.trace(coincidence)
     return float(1.0 - (total - 1.0) * observed / expected)
+
+
+def krippendorff_alpha_of_labels(labels: npt.ArrayLike, labelled: npt.ArrayLike | None = None, n_classes: int = 2) -> float | None:
+    """:func:`krippendorff_alpha_nominal` of a sources x items matrix of class indices
+    (missing by the mask, or ``-1`` when no mask is given)."""
+    values, mask = observed_mask(labels, labelled, n_classes)
+    return krippendorff_alpha_nominal(np.where(mask, values.astype(np.float64), np.nan))
+
+
+def batch_agreement(
+    labels: npt.ArrayLike, labelled: npt.ArrayLike | None = None, n_classes: int = 2
+) -> tuple[float | None, float | None]:
+    """(Krippendorff's nominal alpha over all labels, Fleiss' kappa when every item has
+    equally many labels) of one batch's sources x items matrix."""
+    return (
+        krippendorff_alpha_of_labels(labels, labelled, n_classes),
+        fleiss_kappa_of_labels(labels, labelled, n_classes),
+    )

@@ -2,65 +2,41 @@
 
 Pure: takes the label matrix, the fits and the sources' own history (earlier batches'
 per-source counts) and returns one :class:`SourceReport` per source. Flags are short
-codes, each evidence for a human, not a verdict:
+codes, each evidence for a human, not a verdict; which flags exist, their thresholds,
+defaults and tests are declared once, in :mod:`truthsieve.core.flags` (add a flag there).
 
-============================  ================================================================
-``rule_shaped``               one rule of the class fits the source's labels (almost) exactly
-                              while it disagrees with the consensus, or while it pulls the
-                              fit (a lie that won no longer disagrees): the shape of a
-                              best-response report under ERM.
-``far_from_consensus``        disagreement with the consensus rule above ``max_disagreement``.
-``low_reliability``           Dawid-Skene balanced accuracy below ``min_balanced_accuracy``.
-``low_agreement``             Cohen's kappa with the consensus labels below ``min_kappa``.
-``gain_from_lying``           the source could lower its risk under plain ERM by at least
-                              ``max_gain`` (lower end of the bracket).
-``pulls_fit``                 the source's report moves the consensus fit so that the other
-                              sources' weighted risk rises by at least ``max_pull``
-                              (see :mod:`truthsieve.core.incentives`).
-``drift_positive_rate``       positive rate differs from the source's trailing history
-                              (two-proportion z-test, Holm-corrected over all tests).
-``drift_disagreement``        disagreement rate differs from its trailing history (same test).
-============================  ================================================================
+K classes (labels ``0..K-1``, ``n_classes`` given explicitly, default 2):
+
+- ``kappa`` is Cohen's kappa over the ``K`` categories against the consensus labels.
+- ``balanced_accuracy`` is the Dawid-Skene **macro-averaged recall**
+  ``(1/K) sum_k theta_i[k, k]``, not the accuracy against the consensus: for ``K = 2``
+  it is exactly the mean of sensitivity and specificity (binary numbers do not move); it
+  does not reward reporting the most common class (such a source scores ``1/K``); and
+  any report that ignores the true class scores exactly ``1/K``, a chance level known for
+  every ``K``. Accuracy against the consensus is published already, as ``1 - disagreement``.
+  ``recall`` holds the ``K`` per-class recalls; ``sensitivity`` and ``specificity`` are the
+  recalls of classes 1 and 0 (their binary meaning).
+- ``positives`` counts labels other than class 0 (for ``K = 2``: the accept count), and
+  ``drift_positive_rate`` tests that share; a test of the whole class distribution
+  (chi-square over ``K`` classes) would be the fuller check for ``K > 2``.
 """
 
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
+import numpy.typing as npt
 
 from truthsieve.core.agreement import cohen_kappa
 from truthsieve.core.dawid_skene import DawidSkeneFit
+from truthsieve.core.flags import FLAG_CODES, FLAGS, THRESHOLDS, FlagThresholds, raised_flags
 from truthsieve.core.incentives import SourceIncentive
 from truthsieve.core.labels import LabelMatrix
 from truthsieve.core.sampling import effective_sample_size, holm_adjust, two_proportion_p_value, wilson_interval
 
-FLAG_CODES = (
-    "rule_shaped",
-    "far_from_consensus",
-    "low_reliability",
-    "low_agreement",
-    "gain_from_lying",
-    "pulls_fit",
-    "drift_positive_rate",
-    "drift_disagreement",
-)
-
-
-@dataclass(frozen=True)
-class FlagThresholds:
-    """Thresholds of the flags (documented in the module docstring)."""
-
-    rule_shape_tolerance: float = 0.01
-    rule_shape_min_disagreement: float = 0.05
-    max_disagreement: float = 0.2
-    min_balanced_accuracy: float = 0.8
-    min_kappa: float = 0.5
-    max_gain: float = 0.05
-    max_pull: float = 0.02
-    drift_alpha: float = 0.01
-    confidence: float = 0.95
+__all__ = ["FLAGS", "FLAG_CODES", "THRESHOLDS", "FlagThresholds", "SourceHistory", "SourceReport", "assess_sources"]
 
 
 @dataclass(frozen=True)
@@ -93,45 +69,52 @@ class SourceReport:
     drift_disagreement_p: float | None
     history_batches: int
     flags: tuple[str, ...] = field(default=())
+    recall: tuple[float, ...] = field(default=())  # Dawid-Skene recall of each class 0..K-1
 
 
 def assess_sources(
     matrix: LabelMatrix,
-    consensus_labels: np.ndarray,
+    consensus_labels: npt.ArrayLike,
     incentives: Sequence[SourceIncentive],
     reliability: DawidSkeneFit,
     history: Mapping[str, SourceHistory],
     thresholds: FlagThresholds,
+    n_classes: int | None = None,
 ) -> list[SourceReport]:
-    """Evidence and flags for every source, in source order."""
-    consensus_labels = np.asarray(consensus_labels).astype(np.int8)
-    base = []
-    p_values = []
+    """Evidence and flags for every source, in source order.
+
+    :param n_classes: ``K``; None takes it from ``reliability`` (the Dawid-Skene fit
+        carries a ``K x K`` confusion matrix per source).
+    """
+    classes = reliability.n_classes if n_classes is None else n_classes
+    fitted_labels = np.asarray(consensus_labels).astype(np.int8)
+    base: list[tuple[int, str, int, int, int, SourceIncentive, float, float, tuple[float | None, float | None], SourceHistory | None]] = []
+    p_values: list[float] = []
     for i, source in enumerate(matrix.source_ids):
         mask = matrix.labelled[i]
         own = matrix.labels[i][mask]
-        fitted = consensus_labels[mask]
+        fitted = fitted_labels[mask]
         items = int(mask.sum())
-        positives = int(own.sum())
+        positives = int(np.count_nonzero(own))
         disagreements = int((own != fitted).sum())
         incentive = incentives[i]
         n_effective = effective_sample_size(matrix.item_weights[mask])
         low, high = wilson_interval(incentive.disagreement * n_effective, n_effective, thresholds.confidence)
         past = history.get(source)
-        drift = (None, None)
+        drift: tuple[float | None, float | None] = (None, None)
         if past is not None and past.items > 0:
-            drift = (
-                two_proportion_p_value(positives, items, past.positives, past.items),
-                two_proportion_p_value(disagreements, items, past.disagreements, past.items),
-            )
-            p_values.extend(drift)
+            positive_p = two_proportion_p_value(positives, items, past.positives, past.items)
+            disagreement_p = two_proportion_p_value(disagreements, items, past.disagreements, past.items)
+            drift = (positive_p, disagreement_p)
+            p_values.extend((positive_p, disagreement_p))
         base.append((i, source, items, positives, disagreements, incentive, low, high, drift, past))
 
     adjusted = iter(holm_adjust(np.array(p_values)) if p_values else [])
+    recall = reliability.recall
     reports = []
     for i, source, items, positives, disagreements, incentive, low, high, drift, past in base:
-        drift_adjusted = tuple(next(adjusted) if p is not None else None for p in drift)
-        kappa = cohen_kappa(matrix.labels[i][matrix.labelled[i]], consensus_labels[matrix.labelled[i]])
+        drift_adjusted = tuple(float(next(adjusted)) if p is not None else None for p in drift)
+        mask = matrix.labelled[i]
         report = SourceReport(
             source_id=source,
             weight=float(matrix.source_weights[i]),
@@ -142,7 +125,7 @@ def assess_sources(
             disagreement=incentive.disagreement,
             disagreement_low=low,
             disagreement_high=high,
-            kappa=kappa,
+            kappa=cohen_kappa(matrix.labels[i][mask], fitted_labels[mask], classes),
             sensitivity=float(reliability.sensitivity[i]),
             specificity=float(reliability.specificity[i]),
             balanced_accuracy=float(reliability.balanced_accuracy[i]),
@@ -150,23 +133,7 @@ def assess_sources(
             drift_positive_rate_p=drift_adjusted[0],
             drift_disagreement_p=drift_adjusted[1],
             history_batches=past.batches if past else 0,
+            recall=tuple(float(r) for r in recall[i]),
         )
-        reports.append(_with_flags(report, thresholds))
+        reports.append(replace(report, flags=raised_flags(report, thresholds)))
     return reports
-
-
-def _with_flags(report: SourceReport, t: FlagThresholds) -> SourceReport:
-    incentive = report.incentive
-    checks = {
-        "rule_shaped": incentive.own_best_risk <= t.rule_shape_tolerance
-        and (report.disagreement >= t.rule_shape_min_disagreement or incentive.pull >= t.max_pull),
-        "far_from_consensus": report.disagreement > t.max_disagreement,
-        "low_reliability": report.balanced_accuracy < t.min_balanced_accuracy,
-        "low_agreement": report.kappa is not None and report.kappa < t.min_kappa,
-        "gain_from_lying": incentive.gain_lower >= t.max_gain,
-        "pulls_fit": incentive.pull >= t.max_pull,
-        "drift_positive_rate": report.drift_positive_rate_p is not None and report.drift_positive_rate_p < t.drift_alpha,
-        "drift_disagreement": report.drift_disagreement_p is not None and report.drift_disagreement_p < t.drift_alpha,
-    }
-    flags = tuple(code for code in FLAG_CODES if checks[code])
-    return SourceReport(**{**report.__dict__, "flags": flags})

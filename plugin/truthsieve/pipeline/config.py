@@ -8,10 +8,10 @@ from pathlib import Path
 from typing import Literal
 
 import yaml
-from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, create_model, field_validator, model_validator
 
 from truthsieve.core.mechanisms import MECHANISMS
-from truthsieve.core.source_checks import FLAG_CODES, FlagThresholds
+from truthsieve.core.flags import FLAG_CODES, THRESHOLDS, FlagThresholds
 from truthsieve.pipeline.classes import ClassAlphabet, check_class_names
 from truthsieve.exceptions import ConfigError
 
@@ -80,8 +80,16 @@ class SourceEntry(_Strict):
 
 ROUTING_MODES = ("strategy_proof", "guarded")
 
+# One field per flag threshold, with the default, bounds and meaning of the core's flag
+# registry (truthsieve.core.flags): the defaults are written there and only there.
+_FlagThresholdFields = create_model(
+    "_FlagThresholdFields",
+    __base__=_Strict,
+    **{t.name: (float, Field(t.default, ge=t.ge, le=t.le, gt=t.gt, lt=t.lt, description=t.description)) for t in THRESHOLDS.values()},  # type: ignore[call-overload]
+)
 
-class RoutingPolicy(_Strict):
+
+class RoutingPolicy(_FlagThresholdFields):  # type: ignore[misc,valid-type]
     """``routing``: when a batch may go to the aggregation step, and which numbers are alerts.
 
     ``mode: strategy_proof`` (the default): the route depends only on what no source's
@@ -115,16 +123,7 @@ class RoutingPolicy(_Strict):
         description="strategy_proof: registry guarantee above this: review (default 3); guarded: realised ratio above this: review (default 2)",
     )
     review_on_flags: list[str] = Field(default_factory=lambda: list(FLAG_CODES), description="guarded: flags that send a batch to review")
-    rule_shape_tolerance: float = Field(0.01, ge=0, le=1)
-    rule_shape_min_disagreement: float = Field(0.05, ge=0, le=1)
-    max_disagreement: float = Field(0.2, ge=0, le=1)
-    min_balanced_accuracy: float = Field(0.8, ge=0, le=1)
-    min_kappa: float = Field(0.5, ge=-1, le=1)
-    max_gain: float = Field(0.05, ge=0, le=1)
-    max_pull: float = Field(0.02, ge=0, le=1, description="pulls_fit at or above this")
-    drift_alpha: float = Field(0.01, gt=0, lt=1)
     drift_window: int = Field(7, ge=1, description="earlier batches pooled as each source's history")
-    confidence: float = Field(0.95, gt=0, lt=1, description="level of the Wilson intervals")
 
     @property
     def ratio_bound(self) -> float:
@@ -142,17 +141,7 @@ class RoutingPolicy(_Strict):
         return value
 
     def thresholds(self) -> FlagThresholds:
-        return FlagThresholds(
-            rule_shape_tolerance=self.rule_shape_tolerance,
-            rule_shape_min_disagreement=self.rule_shape_min_disagreement,
-            max_disagreement=self.max_disagreement,
-            min_balanced_accuracy=self.min_balanced_accuracy,
-            min_kappa=self.min_kappa,
-            max_gain=self.max_gain,
-            max_pull=self.max_pull,
-            drift_alpha=self.drift_alpha,
-            confidence=self.confidence,
-        )
+        return FlagThresholds(**{name: getattr(self, name) for name in THRESHOLDS})
 
 
 class AnalysisSettings(_Strict):
