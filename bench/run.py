@@ -150,11 +150,12 @@ def measure(n_items: int, listed_rules: int, repeat: int) -> dict:
             if rule_class.kind == "threshold":
                 from sklearn.tree import DecisionTreeClassifier
 
-                cost0, cost1 = matrix.global_costs()
+                costs = matrix.global_costs()
+                cost0, cost1 = costs[:, 0], costs[:, 1]
                 features = np.column_stack([f.values for f in rule_class.features])
                 y = (cost0 > cost1).astype(int)
                 weight = np.abs(cost0 - cost1)
-                timed("threshold_erm", lambda: rule_class.fit(cost0, cost1))
+                timed("threshold_erm", lambda: rule_class.fit(costs))
                 timed("sklearn_stump", lambda: DecisionTreeClassifier(max_depth=1).fit(features, y, sample_weight=weight))
     medians = {k: statistics.median(v) for k, v in times.items()}
     exact = [r.gain_exact for r in results]
