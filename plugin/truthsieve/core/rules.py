@@ -289,7 +289,7 @@ class ListedRules(RuleClass):
         if outside.any():
             row, column = (int(v[0]) for v in np.nonzero(outside))
             raise ClassIndexError(
-                f"listed rule column {names[column]!r} holds {raw[row, column]!r} in row {row}, "
+                f"listed rule column {names[column]!r} holds {np.asarray(raw[row, column]).item()!r} in row {row}, "
                 f"not a class index 0..{n_classes - 1}"
             )
         # One indicator per class k >= 1; with two classes the former boolean table.
