@@ -205,28 +205,6 @@ def _cheapest_lie(
     return float(lower), max(upper, float(lower))
 
 
-def cheapest_lie(
-    matrix: LabelMatrix,
-    rule_class: RuleClass,
-    index: int,
-    target: int,
-    others: object = None,
-    consensus_rule: int = 0,
-    *,
-    global_linear: FloatArray | None = None,
-) -> tuple[float, float]:
-    """(lower, upper) item weight of labels source ``index`` must change to reach ``target``.
-
-    Each reachability check scores only the flipped prefix (see :class:`_Source`):
-    ``risks = R + w * change(prefix)``, O(d K prefix + cuts K²). ``others`` is accepted
-    for compatibility and not needed: ``G + w R_i = R``.
-    """
-    if global_linear is None:
-        global_linear = incentive_context(matrix, rule_class)
-    own = matrix.sources[index]
-    return _cheapest_lie(_Source(own, rule_class), own, target, consensus_rule, global_linear)
-
-
 def source_incentive(
     matrix: LabelMatrix,
     rule_class: RuleClass,
