@@ -68,3 +68,15 @@ def test_split_path_equals_the_whole_night_bit_for_bit(seed, kind, n_classes, tm
     ordered = [by_id[s] for s in present]
     for mechanism in ("random_dictator", "weighted_dictator", "tuned_dictator"):
         assert run_from_statistics(mechanism, totals, ordered, items_of_night.rule_class) == run_mechanism(mechanism, matrix, whole_class, whole_fit)
+
+
+def test_split_steps_name_bad_input(tmp_path):
+    from truthsieve.exceptions import ClassIndexError, UnknownReferenceError
+
+    config = load_config(write_config(tmp_path / "c.yaml", rule_class={"kind": "constant"}))
+    items = pd.DataFrame({"item_id": ["a", "b"]})
+    night_of = analysis.night_items(items, config, n_classes=3)
+    with pytest.raises(UnknownReferenceError, match="'lab' on unknown item 'ghost'"):
+        analysis.source_statistics(pd.DataFrame({"item_id": ["a", "ghost"], "label": [0, 1]}), "lab", night_of, 1.0)
+    with pytest.raises(ClassIndexError, match="'lab'.*0..2"):
+        analysis.source_statistics(pd.DataFrame({"item_id": ["a", "b"], "label": [0, 3]}), "lab", night_of, 1.0)

@@ -31,7 +31,7 @@ FloatArray = npt.NDArray[np.float64]
 IntArray = npt.NDArray[np.int64]
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class SourceLabels:
     """One source's labels, sparse: all that its private risk and its global term need.
 

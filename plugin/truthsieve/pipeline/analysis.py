@@ -30,6 +30,7 @@ from truthsieve.core.rules import RuleClass, build_rule_class
 from truthsieve.core.statistics import FloatArray, SourceLabels
 from truthsieve.core.sampling import items_needed
 from truthsieve.core.source_checks import SourceHistory, SourceReport, assess_sources
+from truthsieve.exceptions import ClassIndexError, UnknownReferenceError, WeightError
 from truthsieve.pipeline.config import Config
 
 
@@ -95,6 +96,8 @@ def night_items(items: pd.DataFrame, config: Config, *, n_classes: int | None = 
         weights = items["item_weight"].to_numpy(dtype=np.float64)[order]
     else:
         weights = np.ones(len(item_ids))
+    if not np.isfinite(weights).all() or (weights < 0).any():
+        raise WeightError("item weights must be finite and non-negative")
     k = class_count(config, n_classes)
     rule_class = build_rule_class(config.rule_class.kind, items, item_ids, config.rule_class.features, k)
     return NightItems(item_ids, weights, rule_class)
@@ -115,9 +118,16 @@ def source_statistics(labels: pd.DataFrame, source_id: str, night: NightItems, w
     import pyarrow as pa
     import pyarrow.compute as pc
 
-    found = pc.index_in(id_array(labels["item_id"]), value_set=pa.array(night.item_ids, pa.string()))
+    label_items = id_array(labels["item_id"])
+    found = pc.index_in(label_items, value_set=pa.array(night.item_ids, pa.string()))
+    if found.null_count:
+        unknown = label_items.filter(found.is_null())[0].as_py()
+        raise UnknownReferenceError(f"label of source {source_id!r} on unknown item {unknown!r}")
     codes = found.to_numpy(zero_copy_only=False)
     classes = labels["label"].to_numpy().astype(np.int64)
+    k = night.rule_class.n_classes
+    if len(classes) and (classes.min() < 0 or classes.max() >= k):
+        raise ClassIndexError(f"source {source_id!r}: a label is not a class index 0..{k - 1}")
     return core_statistics.source_statistics(source_id, codes, classes, night.item_weights, weight)
 
 
