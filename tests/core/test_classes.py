@@ -328,3 +328,28 @@ def test_sources_away_and_present_keep_participation_with_four_classes(seed):
             away = dictator_lottery(without(instance, source), mechanism, kind, features_for(kind), registry)
             truth = instance.labels[source]
             assert lottery_private_risk(instance, present, source, truth) <= lottery_private_risk(instance, away, source, truth)
+
+
+@pytest.mark.parametrize("mechanism", ["erm", *DICTATORS])
+@settings(max_examples=30, deadline=None)
+@given(data=st.data(), seed=st.integers(0, 2**32 - 1), scale=st.integers(2, 50))
+def test_three_class_results_ignore_row_order_source_names_and_weight_scale(mechanism, data, seed, scale):
+    instance = data.draw(instances(kind="threshold", n_classes=3))
+    labels, items = instance.frames()
+    rng = np.random.default_rng(seed)
+
+    def run(label_rows, item_rows, weights):
+        matrix = build_label_matrix(label_rows, item_rows, weights, n_classes=3)
+        rule_class = build_rule_class("threshold", item_rows, matrix.item_ids, FEATURES, 3)
+        result = run_mechanism(mechanism, matrix, rule_class)
+        return [rule_class.describe(e.rule) for e in result.lottery], [e.probability for e in result.lottery], result.expected_risk
+
+    base = run(labels, items, instance.source_weights)
+    # Renaming keeps the sorted order of sources, so lottery entries line up by position.
+    rename = {s: f"renamed-{k:02d}" for k, s in enumerate(sorted(instance.source_weights))}
+    shuffled = labels.sample(frac=1.0, random_state=rng).replace({"source_id": rename})
+    scaled_items = items.sample(frac=1.0, random_state=rng).assign(item_weight=lambda t: t["item_weight"] * scale)
+    other = run(shuffled, scaled_items, {rename[s]: w * scale for s, w in instance.source_weights.items()})
+    assert base[0] == other[0]
+    assert base[1] == pytest.approx(other[1], abs=1e-12)
+    assert base[2] == pytest.approx(other[2], abs=1e-12)

@@ -20,16 +20,20 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+import pyarrow as pa
+import pyarrow.compute as pc
+
+from truthsieve.core import mechanisms
+from truthsieve.core import statistics as core_statistics
 from truthsieve.core.agreement import fleiss_kappa, krippendorff_alpha_nominal
 from truthsieve.core.dawid_skene import DawidSkeneFit, dawid_skene
-from truthsieve.core import statistics as core_statistics
 from truthsieve.core.incentives import SourceIncentive, analyse_source, context_from_totals, incentive_context, source_incentive
 from truthsieve.core.labels import LabelMatrix, as_ids, build_label_matrix, id_array, normalised_weights
 from truthsieve.core.mechanisms import ConsensusFit, MechanismResult, fit_consensus, run_mechanism
 from truthsieve.core.rules import RuleClass, build_rule_class
-from truthsieve.core.statistics import FloatArray, SourceLabels
 from truthsieve.core.sampling import items_needed
 from truthsieve.core.source_checks import SourceHistory, SourceReport, assess_sources
+from truthsieve.core.statistics import FloatArray, SourceLabels
 from truthsieve.exceptions import ClassIndexError, UnknownReferenceError, WeightError
 from truthsieve.pipeline.config import Config
 
@@ -115,9 +119,6 @@ def source_statistics(labels: pd.DataFrame, source_id: str, night: NightItems, w
 
     :param weight: the source's normalised weight (:func:`source_weights`).
     """
-    import pyarrow as pa
-    import pyarrow.compute as pc
-
     label_items = id_array(labels["item_id"])
     found = pc.index_in(label_items, value_set=pa.array(night.item_ids, pa.string()))
     if found.null_count:
@@ -138,9 +139,7 @@ def sum_statistics(sources: Sequence[SourceLabels], night: NightItems) -> FloatA
 
 def fit_from_totals(totals: FloatArray, night: NightItems) -> ConsensusFit:
     """The consensus fit from the summed costs alone."""
-    from truthsieve.core.mechanisms import fit_from_totals as fit
-
-    return fit(totals, night.rule_class)
+    return mechanisms.fit_from_totals(totals, night.rule_class)
 
 
 def analyse_one_source(
