@@ -201,7 +201,7 @@ def build_label_matrix(
     shape = (len(present), len(item_ids))
     dense_labels = np.zeros(shape, dtype=np.int8)
     labelled = np.zeros(shape, dtype=bool)
-    classes = labels["label"].to_numpy().astype(np.int64)
+    classes = labels["label"].to_numpy()  # no copy: 10M labels stay one int8 pass
     if len(classes) and (classes.min() < 0 or classes.max() >= n_classes):
         bad = int(np.flatnonzero((classes < 0) | (classes >= n_classes))[0])
         raise ClassIndexError(f"label {classes[bad]} in row {bad} is not a class index 0..{n_classes - 1}")
