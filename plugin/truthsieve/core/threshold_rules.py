@@ -104,7 +104,9 @@ class ThresholdRules(RuleClass):
     @staticmethod
     def _pair_risks(alpha: FloatArray, delta: FloatArray, above: IntArray, below: IntArray) -> FloatArray:
         # b = 0 adds nothing (Δ(0) = 0), so K = 2 keeps the former floats exactly.
-        out: FloatArray = np.where(below == 0, alpha[:, above], alpha[:, above] + delta[:, below])
+        out: FloatArray = alpha[:, above]
+        adds = below > 0
+        out[:, adds] += delta[:, below[adds]]
         return out
 
     def linear_risks(self, costs: FloatArray, items: IntArray | None = None) -> FloatArray:
@@ -150,6 +152,8 @@ class ThresholdRules(RuleClass):
             return out
 
         distinct = risk(a1, b1)
+        # When a1 = b1 = c the constant rule c is at least as good (in exact arithmetic),
+        # so this branch rarely decides the fit; it keeps the value exact all the same.
         same = np.minimum(risk(a1, b2), risk(a2, b1))
         result: FloatArray = np.where(a1 != b1, distinct, same)
         return result
