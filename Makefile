@@ -33,4 +33,4 @@ lock:
 	python3 -m uv pip compile pyproject.toml --extra airflow --extra celery --extra test -p 3.11 -o requirements.lock
 
 clean:
-	rm -rf $(VENV) out .pytest_cache .hypothesis
+	rm -rf $(VENV) out .pytest_cache .hypothesis .mypy_cache
