@@ -3,7 +3,7 @@ VENV   := .venv
 PYTHON := $(VENV)/bin/python
 STAMP  := $(VENV)/.installed
 
-.PHONY: setup demo test test-fast bench lock clean
+.PHONY: setup demo test typecheck test-fast bench lock clean
 
 setup: $(STAMP)
 
@@ -17,8 +17,11 @@ $(STAMP): pyproject.toml requirements.lock
 demo: setup
 	$(VENV)/bin/truthsieve demo --out out/demo
 
-test: setup
+test: setup typecheck
 	$(PYTHON) -m pytest -q
+
+typecheck: setup
+	$(VENV)/bin/mypy
 
 test-fast: setup
 	$(PYTHON) -m pytest -q -m "not airflow and not browser and not slow"
@@ -30,4 +33,4 @@ lock:
 	python3 -m uv pip compile pyproject.toml --extra airflow --extra celery --extra test -p 3.11 -o requirements.lock
 
 clean:
-	rm -rf $(VENV) out .pytest_cache .hypothesis
+	rm -rf $(VENV) out .pytest_cache .hypothesis .mypy_cache

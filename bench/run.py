@@ -3,6 +3,7 @@
     python bench/run.py            # 100k and 1M labels, source scaling, start-up, listed
     python bench/run.py --large    # adds 10M labels (several minutes, a few GiB)
     python bench/run.py --huge     # adds 100M labels (10M items x 10 sources; not in CI)
+    python bench/run.py --classes-only --repeat 1   # only the K = 4 against K = 2 row
 
 Each case runs in a child process so peak resident memory is its own. Figures are
 medians over --repeat runs. Synthetic data only (fixed seeds). The *tight floor* is
@@ -150,11 +151,12 @@ def measure(n_items: int, listed_rules: int, repeat: int) -> dict:
             if rule_class.kind == "threshold":
                 from sklearn.tree import DecisionTreeClassifier
 
-                cost0, cost1 = matrix.global_costs()
+                costs = matrix.global_costs()
+                cost0, cost1 = costs[:, 0], costs[:, 1]
                 features = np.column_stack([f.values for f in rule_class.features])
                 y = (cost0 > cost1).astype(int)
                 weight = np.abs(cost0 - cost1)
-                timed("threshold_erm", lambda: rule_class.fit(cost0, cost1))
+                timed("threshold_erm", lambda: rule_class.fit(costs))
                 timed("sklearn_stump", lambda: DecisionTreeClassifier(max_depth=1).fit(features, y, sample_weight=weight))
     medians = {k: statistics.median(v) for k, v in times.items()}
     exact = [r.gain_exact for r in results]
@@ -167,6 +169,68 @@ def measure(n_items: int, listed_rules: int, repeat: int) -> dict:
         "median_bracket_width": statistics.median(widths),
         "peak_rss_mib": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024,
     }
+
+
+def measure_classes(n_items: int, n_classes: int, repeat: int) -> dict:
+    """Runs inside the child process: the core's steps for ``n_classes`` classes on
+    ``N_SOURCES x n_items`` labels (threshold class on every feature): label matrix,
+    consensus fit, tuned dictator, every source's incentives (budget 64). In-memory
+    tables, so K = 2 and K > 2 are timed on the same path (the pipeline's K-class
+    ingest is measured by the screen rows once it exists)."""
+    import pandas as pd
+
+    from truthsieve.core import build_label_matrix, build_rule_class, fit_consensus, run_mechanism
+    from truthsieve.core.incentives import incentives
+
+    rng = np.random.default_rng(3)
+    features = {f"f{k}": np.round(rng.normal(0, 1, n_items), 3) for k in range(N_FEATURES)}
+    items = pd.DataFrame({"item_id": [f"i{k:08d}" for k in range(n_items)], **features})
+    edges = np.quantile(features["f0"], np.linspace(0, 1, n_classes + 1)[1:-1])
+    truth = np.digitize(features["f0"] + 0.3 * features["f1"], edges)
+    frames = []
+    for s in range(N_SOURCES):
+        noisy = rng.random(n_items) < 0.05 + 0.02 * (s % 10)
+        labels = np.digitize(features["f0"], edges) if s == 0 else np.where(noisy, rng.integers(0, n_classes, n_items), truth)
+        frames.append(pd.DataFrame({"item_id": items["item_id"], "source_id": f"s{s:04d}", "label": labels}))
+    labels = pd.concat(frames, ignore_index=True)
+    weights = {f"s{s:04d}": 1.0 + s % 3 for s in range(N_SOURCES)}
+    times: dict[str, list[float]] = {}
+
+    def timed(name, call):
+        start = time.perf_counter()
+        value = call()
+        times.setdefault(name, []).append(time.perf_counter() - start)
+        return value
+
+    for _ in range(repeat):
+        start = time.perf_counter()
+        matrix = timed("label_matrix", lambda: build_label_matrix(labels, items, weights, n_classes=n_classes))
+        rule_class = build_rule_class("threshold", items, matrix.item_ids, list(features), n_classes)
+        consensus = timed("consensus_fit", lambda: fit_consensus(matrix, rule_class))
+        timed("mechanism", lambda: run_mechanism("tuned_dictator", matrix, rule_class, consensus))
+        timed("incentives", lambda: incentives(matrix, rule_class, consensus, 64))
+        times.setdefault("core_total", []).append(time.perf_counter() - start)
+    return {
+        "labels": n_items * N_SOURCES,
+        "n_classes": n_classes,
+        "rules": rule_class.size,
+        "seconds": {k: statistics.median(v) for k, v in times.items()},
+        "peak_rss_mib": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024,
+    }
+
+
+def classes_row(repeat: str) -> dict:
+    """K = 4 against K = 2 at 1M labels (10 sources x 100k items), the core's steps."""
+    binary = child("--classes-child", "100000", "2", "--repeat", repeat)
+    four = child("--classes-child", "100000", "4", "--repeat", repeat)
+    ratio = four["seconds"]["core_total"] / binary["seconds"]["core_total"]
+    for row in (binary, four):
+        s = row["seconds"]
+        print(f"{'K' + str(row['n_classes']) + ' 1M':>10}: core {s['core_total']:.2f}s (matrix {s['label_matrix']:.2f}s, "
+              f"fit {s['consensus_fit']:.2f}s, mechanism {s['mechanism']:.2f}s, incentives {s['incentives']:.2f}s), "
+              f"{row['rules']} rules, peak RSS {row['peak_rss_mib']:.0f} MiB", flush=True)
+    print(f"{'K4/K2':>10}: {ratio:.2f}", flush=True)
+    return {"K2": binary, "K4": four, "ratio_k4_over_k2": ratio}
 
 
 def measure_apply(n_items: int, repeat: int) -> dict:
@@ -297,6 +361,8 @@ def main() -> None:
     parser.add_argument("--screen-child", nargs=3, type=float, help=argparse.SUPPRESS)
     parser.add_argument("--apply-child", type=int, help=argparse.SUPPRESS)
     parser.add_argument("--many-sources-child", nargs=3, type=int, help=argparse.SUPPRESS)
+    parser.add_argument("--classes-child", nargs=2, type=int, help=argparse.SUPPRESS)
+    parser.add_argument("--classes-only", action="store_true", help="run only the K = 4 against K = 2 row")
     parser.add_argument("--json", type=Path, default=ROOT / "bench" / "results" / "latest.json")
     args = parser.parse_args()
     if args.child:
@@ -304,6 +370,12 @@ def main() -> None:
         return
     if args.many_sources_child:
         print(json.dumps(measure_many_sources(*args.many_sources_child)))
+        return
+    if args.classes_child:
+        print(json.dumps(measure_classes(args.classes_child[0], args.classes_child[1], args.repeat)))
+        return
+    if args.classes_only:
+        classes_row(str(args.repeat))
         return
     if args.screen_child:
         n_items, n_sources, coverage = args.screen_child
@@ -336,6 +408,7 @@ def main() -> None:
     s = figures["apply1M"]["seconds"]
     print(f"{'apply1M':>10}: apply {s['apply']:.2f}s, Parquet read + write floor {s['parquet_floor']:.2f}s")
     figures["many1000x1000"] = many_sources_row(args.repeat)
+    figures["classes1M"] = classes_row(repeat)
     one = figures["1M"]["seconds"]
     ratios = {
         "full_over_tight_floor_1M": one["full_screen"] / one["tight_floor"],
@@ -347,6 +420,7 @@ def main() -> None:
         "startup_seconds": figures["startup"]["startup_wall"],
         "full_over_bare_load_1M": one["full_screen"] / one["bare_load"],
         "apply_over_parquet_floor_1M_items": figures["apply1M"]["seconds"]["apply"] / figures["apply1M"]["seconds"]["parquet_floor"],
+        "classes_k4_over_k2_core_1M": figures["classes1M"]["ratio_k4_over_k2"],
     }
     if "10M" in figures:
         ratios["scaling_10M_over_1M"] = figures["10M"]["seconds"]["full_screen"] / one["full_screen"]

@@ -11,6 +11,7 @@ FEATURES = ["moisture_pct", "falling_number_s"]
 
 def core_objects(instance: Instance, kind: str):
     labels, items = instance.frames()
-    matrix = build_label_matrix(labels, items, instance.source_weights)
-    rule_class = build_rule_class(kind, items, matrix.item_ids, FEATURES if kind == "threshold" else ())
+    matrix = build_label_matrix(labels, items, instance.source_weights, n_classes=instance.n_classes)
+    features = FEATURES if kind == "threshold" else ()
+    rule_class = build_rule_class(kind, items, matrix.item_ids, features, instance.n_classes)
     return matrix, rule_class

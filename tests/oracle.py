@@ -16,14 +16,16 @@ import pandas as pd
 
 @dataclass(frozen=True)
 class Instance:
-    """A small labelled batch: ``labels[s]`` maps item index to 0/1."""
+    """A small labelled batch: ``labels[s]`` maps item index to a class ``0 .. n_classes - 1``;
+    ``listed`` rules give one class per item (bools read as 0/1)."""
 
     n_items: int
     labels: dict[str, dict[int, int]]
     source_weights: dict[str, int]
     item_weights: tuple[int, ...]
     features: dict[str, tuple[float, ...]] = field(default_factory=dict)
-    listed: dict[str, tuple[bool, ...]] = field(default_factory=dict)
+    listed: dict[str, tuple[int, ...]] = field(default_factory=dict)
+    n_classes: int = 2
 
     @property
     def sources(self) -> list[str]:
@@ -48,9 +50,13 @@ class Instance:
 
 
 def enumerate_rules(instance: Instance, kind: str, features: list[str]) -> list[tuple[dict, tuple[int, ...]]]:
-    """Every rule as (JSON form, labelling), in the documented tie-break order."""
-    m = instance.n_items
-    rules = [({"kind": "constant", "label": 0}, (0,) * m), ({"kind": "constant", "label": 1}, (1,) * m)]
+    """Every rule as (JSON form, labelling), in the documented tie-break order.
+
+    Constants 0 .. K-1; for thresholds, per feature, per cut increasing, every pair
+    (above, below) with above != below in lexicographic order.
+    """
+    m, k = instance.n_items, instance.n_classes
+    rules = [({"kind": "constant", "label": c}, (c,) * m) for c in range(k)]
     if kind == "constant":
         return rules
     if kind == "listed":
@@ -62,9 +68,10 @@ def enumerate_rules(instance: Instance, kind: str, features: list[str]) -> list[
         values = sorted(set(instance.features[name]))
         for low, high in zip(values, values[1:]):
             cut = (low + high) / 2
-            for above in (0, 1):
-                labelling = tuple(above if x > cut else 1 - above for x in instance.features[name])
-                rules.append(({"kind": "threshold", "feature": name, "cut": cut, "above": above}, labelling))
+            for above, below in itertools.permutations(range(k), 2):
+                labelling = tuple(above if x > cut else below for x in instance.features[name])
+                form = {"kind": "threshold", "feature": name, "cut": cut, "above": above, "below": below}
+                rules.append((form, labelling))
     return rules
 
 
@@ -106,7 +113,7 @@ def own_erm(instance: Instance, kind: str, features: list[str], source: str):
 
 def all_reports(instance: Instance, source: str):
     items = sorted(instance.labels[source])
-    for bits in itertools.product((0, 1), repeat=len(items)):
+    for bits in itertools.product(range(instance.n_classes), repeat=len(items)):
         yield dict(zip(items, bits))
 
 
@@ -120,7 +127,9 @@ def exhaustive_erm_gain(instance: Instance, kind: str, features: list[str], sour
     return truthful - best
 
 
-def rng_instance(rng: np.random.Generator, n_sources: int, n_items: int, shared: bool, kind: str) -> Instance:
+def rng_instance(
+    rng: np.random.Generator, n_sources: int, n_items: int, shared: bool, kind: str, n_classes: int = 2
+) -> Instance:
     """A random small instance (used where Hypothesis would be too slow for exhaustive search)."""
     labels = {}
     for s in range(n_sources):
@@ -128,13 +137,13 @@ def rng_instance(rng: np.random.Generator, n_sources: int, n_items: int, shared:
             covered = range(n_items)
         else:
             covered = sorted(rng.choice(n_items, size=int(rng.integers(1, n_items + 1)), replace=False).tolist())
-        labels[f"src-{s}"] = {int(j): int(rng.integers(0, 2)) for j in covered}
+        labels[f"src-{s}"] = {int(j): int(rng.integers(0, n_classes)) for j in covered}
     features = {}
     listed = {}
     if kind == "threshold":
         features = {f: tuple(float(v) for v in rng.integers(0, 4, n_items)) for f in ("moisture_pct", "falling_number_s")}
     if kind == "listed":
-        listed = {f"r{k}": tuple(bool(v) for v in rng.integers(0, 2, n_items)) for k in range(int(rng.integers(1, 5)))}
+        listed = {f"r{k}": tuple(int(v) for v in rng.integers(0, n_classes, n_items)) for k in range(int(rng.integers(1, 5)))}
     return Instance(
         n_items=n_items,
         labels=labels,
@@ -142,6 +151,7 @@ def rng_instance(rng: np.random.Generator, n_sources: int, n_items: int, shared:
         item_weights=tuple(int(v) for v in rng.integers(1, 3, n_items)),
         features=features,
         listed=listed,
+        n_classes=n_classes,
     )
 
 

@@ -49,3 +49,7 @@ class LedgerBrokenError(InputError):
 
 class VerdictError(InputError):
     """A verdict or revocation names a night that does not exist or is not in the state it needs."""
+
+
+class ClassIndexError(InputError):
+    """A label or a listed rule holds a value that is not a class index 0..K-1."""

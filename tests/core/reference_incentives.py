@@ -2,10 +2,11 @@
 
 This is the cheapest-lie and gain search exactly as :mod:`truthsieve.core.incentives`
 ran it before the incremental fast paths: every reachability check rebuilds the
-cost vectors from scratch and scores every rule with a dense prediction matrix
-(``risk = cost0 @ (1 - P) + cost1 @ P``), which shares no code with the prefix sums
-and cut bins of :class:`~truthsieve.core.rules.ThresholdRules`. Only ``predict`` and
-``locate`` of the rule class are used.
+cost arrays from scratch and scores every rule with a dense prediction matrix
+(``risk[r] = sum_j costs[j, P[j, r]]``, for any number of classes), which shares no
+code with the prefix sums and cut bins of :class:`~truthsieve.core.rules.ThresholdRules`.
+Only ``predict`` and ``locate`` of the rule class are used, and the label matrix's
+dense arrays (never its cached costs).
 """
 
 from __future__ import annotations
@@ -16,12 +17,14 @@ TIE_TOLERANCE = 1e-10
 
 
 def predictions(rule_class) -> np.ndarray:
-    """(m, size) bool matrix: column r is rule r's labels."""
+    """(m, size) int matrix: column r is rule r's classes."""
     return np.column_stack([rule_class.predict(r) for r in range(rule_class.size)])
 
 
-def dense_risks(table: np.ndarray, cost0: np.ndarray, cost1: np.ndarray) -> np.ndarray:
-    return np.maximum(cost0 @ ~table + cost1 @ table, 0.0)
+def dense_risks(table: np.ndarray, costs: np.ndarray) -> np.ndarray:
+    """``sum_j costs[j, table[j, r]]`` for every column r, clipped at 0."""
+    picked = np.take_along_axis(costs, table, axis=1)  # (m, size)
+    return np.maximum(picked.sum(axis=0), 0.0)
 
 
 def first_minimum(risks: np.ndarray) -> int:
@@ -33,19 +36,19 @@ def coverage(matrix) -> np.ndarray:
 
 
 def report_costs(matrix, index, report):
+    """(m, K): share u_j / U_i where the class differs from the report, on labelled items."""
     share = np.where(matrix.labelled[index], matrix.item_weights, 0.0) / coverage(matrix)[index]
-    positive = np.asarray(report).astype(bool)
-    return np.where(positive, share, 0.0), np.where(positive, 0.0, share)
+    report = np.asarray(report).astype(int)
+    wrong = np.arange(matrix.n_classes)[np.newaxis, :] != report[:, np.newaxis]
+    return share[:, np.newaxis] * wrong
 
 
 def others_costs(matrix, exclude):
-    cost0, cost1 = np.zeros(matrix.n_items), np.zeros(matrix.n_items)
+    costs = np.zeros((matrix.n_items, matrix.n_classes))
     for i in range(matrix.n_sources):
         if i != exclude:
-            c0, c1 = report_costs(matrix, i, matrix.labels[i])
-            cost0 += matrix.source_weights[i] * c0
-            cost1 += matrix.source_weights[i] * c1
-    return cost0, cost1
+            costs += matrix.source_weights[i] * report_costs(matrix, i, matrix.labels[i])
+    return costs
 
 
 def reference_incentive(matrix, rule_class, consensus_rule: int, consensus_risk: float, index: int, budget=None) -> dict:
@@ -54,18 +57,17 @@ def reference_incentive(matrix, rule_class, consensus_rule: int, consensus_risk:
     if budget is None or rule_class.kind != "threshold":
         budget = rule_class.size
     weight = matrix.source_weights[index]
-    truth = matrix.labels[index].astype(bool)
+    truth = matrix.labels[index].astype(int)
     others = others_costs(matrix, index)
-    others_risks = dense_risks(table, *others)
-    private = dense_risks(table, *report_costs(matrix, index, truth))
+    others_risks = dense_risks(table, others)
+    private = dense_risks(table, report_costs(matrix, index, truth))
     others_rule, own_rule = first_minimum(others_risks), first_minimum(private)
 
     def reaches(report, target):
-        extra0, extra1 = report_costs(matrix, index, report)
-        return first_minimum(dense_risks(table, others[0] + weight * extra0, others[1] + weight * extra1)) == target
+        return first_minimum(dense_risks(table, others + weight * report_costs(matrix, index, report))) == target
 
     def distance_to(rule):
-        return dense_risks(table, *report_costs(matrix, index, table[:, rule]))
+        return dense_risks(table, report_costs(matrix, index, table[:, rule]))
 
     survivors = (others_risks <= others_risks[others_rule] + weight * distance_to(others_rule) + TIE_TOLERANCE) & (
         others_risks <= others_risks[consensus_rule] + weight * distance_to(consensus_rule) + TIE_TOLERANCE
@@ -93,13 +95,13 @@ def reference_incentive(matrix, rule_class, consensus_rule: int, consensus_risk:
     if target == consensus_rule:
         lie_lower = lie_upper = 0.0
     else:
-        totals = dense_risks(table, others[0] + weight * private_costs(matrix, index)[0], others[1] + weight * private_costs(matrix, index)[1])
+        totals = dense_risks(table, others + weight * private_costs(matrix, index))
         deficit = max(0.0, float((totals[target] - totals).max()))
         lie_lower = deficit * coverage(matrix)[index] / (2.0 * weight)
         target_labels = table[:, target]
         disagreeing = np.flatnonzero(matrix.labelled[index] & (truth != target_labels))
-        if rule_class.kind == "threshold" and target >= 2:
-            feature, position, _ = rule_class.locate(target)
+        if rule_class.kind == "threshold" and target >= matrix.n_classes:
+            feature, position = rule_class.locate(target)[:2]
             distance = np.abs(feature.values[disagreeing] - feature.cuts[position])
             disagreeing = disagreeing[np.argsort(distance, kind="stable")]
         prefix_weight = np.cumsum(matrix.item_weights[disagreeing])

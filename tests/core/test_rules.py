@@ -36,10 +36,10 @@ def test_every_rule_risk_matches_rational_arithmetic(kind, data):
     matrix, rule_class = core_objects(instance, kind)
     expected_global = [global_risk(instance, lab) for _, lab in enumerate_rules(instance, kind, FEATURES)]
     assert rule_class.size == len(expected_global)
-    np.testing.assert_allclose(rule_class.risks(*matrix.global_costs()), [float(r) for r in expected_global], atol=1e-12)
+    np.testing.assert_allclose(rule_class.risks(matrix.global_costs()), [float(r) for r in expected_global], atol=1e-12)
     for i, source in enumerate(matrix.source_ids):
         expected = [private_risk(instance, source, lab) for _, lab in enumerate_rules(instance, kind, FEATURES)]
-        np.testing.assert_allclose(rule_class.risks(*matrix.source_costs(i)), [float(r) for r in expected], atol=1e-12)
+        np.testing.assert_allclose(rule_class.risks(matrix.source_costs(i)), [float(r) for r in expected], atol=1e-12)
 
 
 @pytest.mark.parametrize("kind", ["constant", "threshold", "listed"])

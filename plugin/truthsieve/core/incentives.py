@@ -3,7 +3,10 @@
 Take source ``i``'s report as its truth. Let ``G(r)`` be the global risk of rule ``r``
 without ``i``'s term, ``w`` its normalised weight and ``d_i(a, b)`` the item-weighted
 fraction of ``i``'s items on which ``a`` and ``b`` differ (so ``R_i(c) = d_i(c, y_i)``).
-If ``i`` reports labels ``z``, ERM minimises ``G(r) + w d_i(r, z)``.
+Labels are classes ``0 .. K-1``; ``d_i`` is a weighted Hamming distance, a metric for
+any alphabet, so everything below holds for any ``K``. If ``i`` reports labels ``z``,
+ERM minimises ``G(r) + w d_i(r, z)``. Only the night's summed costs and ``i``'s own
+labels are needed: ``G = R - w R_i`` by linearity (:func:`analyse_source`).
 
 **Reporting the target's own labels is a best way to reach it.** For a target rule
 ``c`` and any report ``z``, the margin of ``c`` over a rival ``r`` is
@@ -26,9 +29,11 @@ closes the bracket. For ``constant`` and ``listed`` every survivor is checked (e
 for ``threshold`` at most ``budget`` checks are made per source, and if they run out
 the result is the bracket ``[gain_lower, gain_upper]`` with ``gain_exact = False``.
 
-**Cheapest lie.** Flipping a label of ``i`` towards ``c`` on item ``j`` raises ``c``'s
-margin over ``r`` by ``2 w u_j / U_i`` if ``r`` differs from ``c`` on ``j``, else by 0,
-so a lie needs at least ``max_r (deficit_r) U_i / (2 w)`` of item weight
+**Cheapest lie.** A flip changes ``i``'s label on item ``j`` from ``y_ij`` to ``c``'s
+class ``c(x_j)``. It raises ``c``'s margin over ``r`` by ``2 w u_j / U_i`` if
+``r(x_j) = y_ij``, by ``w u_j / U_i`` if ``r(x_j)`` is a third class (possible when
+``K > 2``), and by 0 if ``r(x_j) = c(x_j)``; never more than ``2 w u_j / U_i``, so a lie
+needs at least ``max_r (deficit_r) U_i / (2 w)`` of item weight
 (``lie_weight_lower``). Flips only ever raise margins, so reachability is monotone
 along any order of the disagreeing items; a binary search over a prefix in a useful
 order gives a lie that works (``lie_weight_upper``). For the constant class with unit
@@ -56,6 +61,7 @@ from truthsieve.core.labels import TIE_TOLERANCE, LabelMatrix
 from truthsieve.core.mechanisms import ConsensusFit
 from truthsieve.core.rules import RuleClass, ThresholdRules, first_minimum
 from truthsieve.core.search import smallest_satisfying
+from truthsieve.core.statistics import FloatArray, IntArray, SourceLabels
 
 DEFAULT_THRESHOLD_BUDGET = 64
 
@@ -87,109 +93,111 @@ class SourceIncentive:
     others_rule: int = 0
 
 
-def incentive_context(matrix: LabelMatrix, rule_class: RuleClass) -> np.ndarray:
+def incentive_context(matrix: LabelMatrix, rule_class: RuleClass) -> FloatArray:
     """What every source's analysis shares: the unclipped global risk of every rule.
 
     A deterministic function of its inputs, so one source analysed alone (an Airflow
     mapped task) gets the same floats as the same source in a whole-batch loop.
     """
-    return rule_class.linear_risks(*matrix.global_costs())
+    return context_from_totals(matrix.global_costs(), rule_class)
+
+
+def context_from_totals(totals: FloatArray, rule_class: RuleClass) -> FloatArray:
+    """:func:`incentive_context` from the night's ``(m, K)`` summed costs."""
+    return rule_class.linear_risks(totals)
 
 
 class _Source:
     """Source ``i``'s private costs, kept on its own items ``S_i`` only.
 
-    **Incremental scoring.** If ``i`` reports ``z`` instead of ``y_i``, its cost vectors
-    change only on the flipped set ``F = {j in S_i : z_j != y_ij}``: with
-    ``s_j = u_j / U_i`` and new label ``t_j = z_j``, ``cost0[j]`` changes by
-    ``s_j (2 t_j - 1)`` and ``cost1[j]`` by the opposite (a flip: ``t_j = 1 - y_ij``). Risks are linear in the costs,
-    so every rule's risk under ``z`` is the base risk plus ``linear_risks`` of that
-    change on ``F``: a ``bincount`` of ``F``'s cut bins per feature, O(d |F| + cuts),
-    instead of a full O(d m) pass. For a rule ``r`` the change is
-    ``sum_{j in F} s_j (+1 if r(x_j) != t_j else -1)``.
+    **Incremental scoring.** If ``i`` reports ``z`` instead of ``y_i``, its cost array
+    changes only on the flipped set ``F = {j in S_i : z_j != y_ij}``: with
+    ``s_j = u_j / U_i``, the column of the old class ``y_ij`` gains ``s_j`` (predicting it
+    is now wrong) and the column of the new class ``z_j`` loses ``s_j``; the other
+    ``K - 2`` columns do not change (with two classes: ``cost0`` and ``cost1`` move by
+    ``+-s_j`` in opposite directions). Risks are linear in the costs, so every rule's
+    risk under ``z`` is the base risk plus ``linear_risks`` of that change on ``F``: a
+    ``bincount`` of ``F``'s cut bins per feature and class, O(d K |F| + cuts K²),
+    instead of a full pass. For a rule ``r`` the change is
+    ``sum_{j in F} s_j ([r(x_j) = y_ij] - [r(x_j) = z_j])``.
     """
 
-    def __init__(self, matrix: LabelMatrix, rule_class: RuleClass, index: int) -> None:
-        self.items = np.flatnonzero(matrix.labelled[index])
-        self.truth = matrix.labels[index, self.items].astype(bool)
-        self.shares = matrix.item_weights[self.items] / matrix.coverage_weight[index]
+    def __init__(self, own: SourceLabels, rule_class: RuleClass) -> None:
+        self.items = own.items
+        self.truth = own.classes
+        self.shares = own.shares
+        self.item_weights = own.item_weights
         self.rule_class = rule_class
-        own1 = np.where(self.truth, 0.0, self.shares)
-        self.private_linear = rule_class.linear_risks(self.shares - own1, own1, items=self.items)
+        self.private_linear = rule_class.linear_risks(own.sparse_costs(rule_class.n_classes), items=self.items)
 
-    def flip_change(self, positions: np.ndarray) -> np.ndarray:
+    def flip_change(self, positions: IntArray, classes: IntArray) -> FloatArray:
         """Change of every rule's private risk when the labels at ``positions`` (indices
-        into ``self.items``) are flipped."""
-        change0 = self.shares[positions] * np.where(self.truth[positions], -1.0, 1.0)
-        return self.rule_class.linear_risks(change0, -change0, items=self.items[positions])
+        into ``self.items``) become ``classes``."""
+        shares = self.shares[positions]
+        rows = np.arange(len(positions))
+        change = np.zeros((len(positions), self.rule_class.n_classes))
+        change[rows, self.truth[positions]] = shares
+        change[rows, classes] = -shares
+        return self.rule_class.linear_risks(change, items=self.items[positions])
 
-    def disagreeing(self, rule: int) -> np.ndarray:
-        """Positions in ``S_i`` where ``rule`` differs from ``y_i``: O(|S_i|)."""
-        return np.flatnonzero(self.rule_class.predict(rule, self.items) != self.truth)
+    def towards(self, rule: int) -> tuple[IntArray, IntArray]:
+        """Positions in ``S_i`` where ``rule`` differs from ``y_i``, and ``rule``'s classes
+        there: O(|S_i|)."""
+        predicted = self.rule_class.predict(rule, self.items)
+        positions = np.flatnonzero(predicted != self.truth)
+        return positions, predicted[positions]
+
+    def change_to(self, rule: int) -> FloatArray:
+        """Change of every rule's R_i if the source reported ``rule``'s labels."""
+        return self.flip_change(*self.towards(rule))
 
 
-def _reaches(global_linear: np.ndarray, weight: float, change: np.ndarray, target: int) -> bool:
+def _reaches(global_linear: FloatArray, weight: float, change: FloatArray, target: int) -> bool:
     # risks(G + w * costs(z)) = R + w * (change of R_i), R the global risk with y_i.
     risks = global_linear + weight * change
     return first_minimum(np.maximum(risks, 0.0, out=risks)) == target
 
 
-def _lie_order(rule_class: RuleClass, target: int, disagreeing: np.ndarray) -> np.ndarray:
+def _lie_order(rule_class: RuleClass, target: int, items: IntArray) -> IntArray:
     """Disagreeing items, most useful first: nearest the target's cut for thresholds."""
-    if isinstance(rule_class, ThresholdRules) and target >= 2:
-        feature, position, _ = rule_class.locate(target)
-        distance = np.abs(feature.values[disagreeing] - feature.cuts[position])
+    if isinstance(rule_class, ThresholdRules) and target >= rule_class.n_classes:
+        feature, position, _, _ = rule_class.locate(target)
+        distance = np.abs(feature.values[items] - feature.cuts[position])
         return np.argsort(distance, kind="stable")
-    return np.arange(len(disagreeing))
+    return np.arange(len(items))
 
 
-def _by_private_risk(candidates: np.ndarray, private: np.ndarray) -> np.ndarray:
+def _by_private_risk(candidates: IntArray, private: FloatArray) -> IntArray:
     """Candidates by increasing private risk; risks within :data:`TIE_TOLERANCE` of the
     previous one count as tied and go in rule order, so float rounding cannot reorder."""
     ordered = candidates[np.lexsort((candidates, private[candidates]))]
     values = private[ordered]
     group = np.cumsum(np.diff(values, prepend=values[:1]) > TIE_TOLERANCE)
-    return ordered[np.lexsort((ordered, group))]
+    result: IntArray = ordered[np.lexsort((ordered, group))]
+    return result
 
 
-def cheapest_lie(
-    matrix: LabelMatrix,
-    rule_class: RuleClass,
-    index: int,
-    target: int,
-    others=None,
-    consensus_rule: int = 0,
-    *,
-    global_linear: np.ndarray | None = None,
-    source: _Source | None = None,
+def _cheapest_lie(
+    source: _Source, own: SourceLabels, target: int, consensus_rule: int, global_linear: FloatArray
 ) -> tuple[float, float]:
-    """(lower, upper) item weight of labels source ``index`` must change to reach ``target``.
-
-    Each reachability check scores only the flipped prefix (see :class:`_Source`):
-    ``risks = R + w * change(prefix)``, O(d * prefix + cuts). ``others`` is accepted for
-    compatibility and not needed: ``G + w R_i = R``.
-    """
     if target == consensus_rule:
         return 0.0, 0.0
-    if global_linear is None:
-        global_linear = incentive_context(matrix, rule_class)
-    if source is None:
-        source = _Source(matrix, rule_class, index)
-    weight = matrix.source_weights[index]
+    weight = own.weight
     totals = np.maximum(global_linear, 0.0)
     deficit = max(0.0, float((totals[target] - totals).max()))
-    lower = deficit * matrix.coverage_weight[index] / (2.0 * weight)
+    lower = deficit * own.coverage / (2.0 * weight)
 
-    disagreeing = source.disagreeing(target)
-    ordered = disagreeing[_lie_order(rule_class, target, source.items[disagreeing])]
+    disagreeing, classes = source.towards(target)
+    order = _lie_order(source.rule_class, target, source.items[disagreeing])
+    ordered, ordered_classes = disagreeing[order], classes[order]
 
     def reaches_with(count: int) -> bool:
-        return _reaches(global_linear, weight, source.flip_change(ordered[:count]), target)
+        return _reaches(global_linear, weight, source.flip_change(ordered[:count], ordered_classes[:count]), target)
 
     # Reachable with the first `high` flips, not with the first `low`. Prefixes lighter
     # than the margin bound cannot reach, so the search starts there and gallops up:
     # with unit weights the bound is nearly tight and a few checks suffice.
-    ordered_weights = matrix.item_weights[source.items[ordered]]
+    ordered_weights = source.item_weights[ordered]
     prefix_weight = np.cumsum(ordered_weights)
     low = int(np.searchsorted(prefix_weight, lower - TIE_TOLERANCE, side="left"))
     high = smallest_satisfying(reaches_with, low, len(ordered))  # every flip made reaches
@@ -203,36 +211,46 @@ def source_incentive(
     consensus: ConsensusFit,
     index: int,
     budget: int | None = None,
-    global_linear: np.ndarray | None = None,
+    global_linear: FloatArray | None = None,
 ) -> SourceIncentive:
-    """Gain bracket, best reachable target and cheapest lie of source ``index``.
+    """:func:`analyse_source` for source ``index`` of the whole night's matrix."""
+    if global_linear is None:
+        global_linear = incentive_context(matrix, rule_class)
+    return analyse_source(global_linear, matrix.sources[index], rule_class, consensus, budget)
+
+
+def analyse_source(
+    global_linear: FloatArray,
+    own: SourceLabels,
+    rule_class: RuleClass,
+    consensus: ConsensusFit,
+    budget: int | None = None,
+) -> SourceIncentive:
+    """Gain bracket, best reachable target and cheapest lie of one source.
 
     By linearity the others' risks are ``G = R - w R_i``, and every reachability check
     and distance ``d_i(c, .)`` is ``R_i`` plus the change on the items where ``c``
-    differs from ``y_i`` (see :class:`_Source`): no full pass over the matrix per check.
+    differs from ``y_i`` (see :class:`_Source`): no full pass over the night per check,
+    and nothing of the other sources but the night's summed risks.
 
+    :param global_linear: :func:`context_from_totals` of the night (the unclipped global
+        risk of every rule), shared by every source.
+    :param own: the source's sparse labels.
     :param budget: most reachability checks for the threshold class (None: unlimited);
         the constant and listed classes are always searched exhaustively.
-    :param global_linear: :func:`incentive_context` of the same inputs, to share it
-        across sources (computed when None; the result is the same either way).
     """
     if budget is None or not isinstance(rule_class, ThresholdRules):
         budget = rule_class.size
-    if global_linear is None:
-        global_linear = incentive_context(matrix, rule_class)
-    weight = matrix.source_weights[index]
-    source = _Source(matrix, rule_class, index)
+    weight = own.weight
+    source = _Source(own, rule_class)
     private = np.maximum(source.private_linear, 0.0)
     others_risks = np.maximum(global_linear - weight * source.private_linear, 0.0)
     consensus_rule = consensus.rule
     others_rule = first_minimum(others_risks)
     own_rule = first_minimum(private)
-    def change_to(rule: int) -> np.ndarray:
-        """Change of every rule's R_i if source ``index`` reported ``rule``'s labels."""
-        return source.flip_change(source.disagreeing(rule))
 
-    def distance_to(rule: int) -> np.ndarray:
-        return np.maximum(source.private_linear + change_to(rule), 0.0)
+    def distance_to(rule: int) -> FloatArray:
+        return np.maximum(source.private_linear + source.change_to(rule), 0.0)
 
     survivors = (others_risks <= others_risks[others_rule] + weight * distance_to(others_rule) + TIE_TOLERANCE) & (
         others_risks <= others_risks[consensus_rule] + weight * distance_to(consensus_rule) + TIE_TOLERANCE
@@ -240,25 +258,23 @@ def source_incentive(
     best_known = min((consensus_rule, others_rule), key=lambda r: (private[r], r))
     candidates = _by_private_risk(np.flatnonzero(survivors & (private < private[best_known] - TIE_TOLERANCE)), private)
 
-    target, exact, checks, untested_floor = best_known, True, 0, None
+    target, exact, checks, untested_floor = best_known, True, 0, 0.0
     for candidate in candidates:
         if checks >= budget:
             exact, untested_floor = False, float(private[candidate])
             break
         checks += 1
-        if _reaches(global_linear, weight, change_to(int(candidate)), int(candidate)):
+        if _reaches(global_linear, weight, source.change_to(int(candidate)), int(candidate)):
             target = int(candidate)
             break
 
     disagreement = float(private[consensus_rule])
     gain_lower = max(0.0, disagreement - float(private[target]))
     gain_upper = gain_lower if exact else max(gain_lower, disagreement - untested_floor)
-    lie_lower, lie_upper = cheapest_lie(
-        matrix, rule_class, index, target, consensus_rule=consensus_rule, global_linear=global_linear, source=source
-    )
+    lie_lower, lie_upper = _cheapest_lie(source, own, target, consensus_rule, global_linear)
     global_risks = others_risks + weight * private
     return SourceIncentive(
-        source_id=matrix.source_ids[index],
+        source_id=own.source_id,
         disagreement=disagreement,
         own_best_rule=own_rule,
         own_best_risk=float(private[own_rule]),
@@ -281,4 +297,4 @@ def incentives(
 ) -> list[SourceIncentive]:
     """:func:`source_incentive` for every source, in source order."""
     shared = incentive_context(matrix, rule_class)
-    return [source_incentive(matrix, rule_class, consensus, i, budget, shared) for i in range(matrix.n_sources)]
+    return [analyse_source(shared, own, rule_class, consensus, budget) for own in matrix.sources]

@@ -11,43 +11,53 @@ Definitions (see the contract): source ``i`` labelled the items ``S_i`` with lab
     R_i(c) = sum_{j in S_i} u_j [c(x_j) != y_ij] / sum_{j in S_i} u_j
 
 and the global risk is ``R(c) = sum_i w_i R_i(c)`` with normalised weights ``w_i``.
-Both are linear in the rule's predictions, so each is carried as two cost vectors:
-``cost0[j]`` is what predicting 0 on item ``j`` adds to the risk, ``cost1[j]`` what
-predicting 1 adds.
+Labels are class indices ``0 .. K-1`` (``K = n_classes``, default 2; decoding class
+names or bools is the pipeline's job). Both risks are linear in the rule's
+predictions, so each is carried as one cost array of shape ``(m, K)``: ``costs[j, k]``
+is what predicting class ``k`` on item ``j`` adds to the risk (see
+:mod:`truthsieve.core.statistics`, which holds the sparse per-source form).
 """
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from functools import cached_property
+from typing import Any
 
 import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from truthsieve.exceptions import NoItemsError, NoSourcesError, UnknownReferenceError, WeightError
+from truthsieve.core.statistics import FloatArray, SourceLabels, private_costs, source_statistics, sum_statistics
+from truthsieve.exceptions import ClassIndexError, NoItemsError, NoSourcesError, UnknownReferenceError, WeightError
 
 
 @dataclass(frozen=True)
 class LabelMatrix:
     """Dense labels of ``n`` sources on ``m`` shared items.
 
+    The dense ``(n, m)`` arrays serve the statistics that need every label at once
+    (reliability, agreement); the fit and the per-source analysis use only
+    :meth:`global_costs` and :meth:`source_labels`.
+
     :param item_ids: sorted item ids, shape ``(m,)``.
     :param source_ids: sorted source ids, length ``n``.
-    :param labels: ``(n, m)`` int8 array of 0/1 labels (0 where not labelled).
+    :param labels: ``(n, m)`` int8 array of class indices (0 where not labelled).
     :param labelled: ``(n, m)`` bool array, True where source ``i`` labelled item ``j``.
     :param item_weights: ``(m,)`` item weights ``u_j``.
     :param source_weights: ``(n,)`` normalised source weights (sum to 1).
+    :param n_classes: ``K``, the number of classes.
     """
 
     item_ids: np.ndarray
     source_ids: tuple[str, ...]
     labels: np.ndarray
     labelled: np.ndarray
-    item_weights: np.ndarray
-    source_weights: np.ndarray
+    item_weights: FloatArray
+    source_weights: FloatArray
+    n_classes: int = 2
 
     @property
     def n_sources(self) -> int:
@@ -58,69 +68,98 @@ class LabelMatrix:
         return len(self.item_ids)
 
     @cached_property
-    def coverage_weight(self) -> np.ndarray:
-        """``sum_{j in S_i} u_j`` per source: the denominator of ``R_i`` (computed once)."""
-        # Row by row: no (n, m) float temporary.
-        return np.array([self.item_weights[row].sum() for row in self.labelled], dtype=np.float64)
+    def sources(self) -> tuple[SourceLabels, ...]:
+        """Every source's sparse labels, in source order (computed once)."""
+        out = []
+        for i, row in enumerate(self.labelled):
+            items = np.flatnonzero(row)
+            out.append(
+                source_statistics(
+                    self.source_ids[i], items, self.labels[i, items], self.item_weights, float(self.source_weights[i])
+                )
+            )
+        return tuple(out)
 
     @cached_property
-    def _global_costs(self) -> tuple[np.ndarray, np.ndarray]:
-        # Sum over sources of w_i / U_i * u_j on each source's own items, O(sum_i |S_i|).
-        cost0, cost1 = np.zeros(self.n_items), np.zeros(self.n_items)
-        for i in range(self.n_sources):
-            items = np.flatnonzero(self.labelled[i])
-            share = self.item_weights[items] * (self.source_weights[i] / self.coverage_weight[i])
-            positive = self.labels[i, items].astype(bool)
-            cost0[items[positive]] += share[positive]
-            cost1[items[~positive]] += share[~positive]
-        return cost0, cost1
+    def coverage_weight(self) -> FloatArray:
+        """``sum_{j in S_i} u_j`` per source: the denominator of ``R_i`` (computed once)."""
+        return np.array([s.coverage for s in self.sources], dtype=np.float64)
+
+    @cached_property
+    def _global_costs(self) -> FloatArray:
+        # Sum over sources of w_i / U_i * u_j on each source's own items, O(K sum_i |S_i|).
+        return sum_statistics(self.sources, self.n_items, self.n_classes)
 
     @property
     def shared_inputs(self) -> bool:
         """True when every source labelled exactly the same items."""
         return bool((self.labelled == self.labelled[0]).all())
 
-    def source_costs(self, index: int) -> tuple[np.ndarray, np.ndarray]:
-        """Cost vectors of ``R_i`` for source ``index``."""
-        return report_costs(self, index, self.labels[index])
+    def source_labels(self, index: int) -> SourceLabels:
+        """Source ``index``'s sparse labels."""
+        return self.sources[index]
 
-    def global_costs(self, exclude: int | None = None) -> tuple[np.ndarray, np.ndarray]:
-        """Cost vectors of ``R`` (or of ``R`` without source ``exclude``'s term).
+    def source_costs(self, index: int) -> FloatArray:
+        """``(m, K)`` cost array of ``R_i`` for source ``index``."""
+        return private_costs(self.sources[index], self.n_items, self.n_classes)
+
+    def global_costs(self, exclude: int | None = None) -> FloatArray:
+        """``(m, K)`` cost array of ``R`` (or of ``R`` without source ``exclude``'s term).
 
         ``R`` is computed once per matrix; without source ``i`` it is
-        ``R - w_i R_i`` by linearity, O(m) instead of O(n m).
+        ``R - w_i R_i`` by linearity, O(m K) instead of O(n m K).
         """
-        cost0, cost1 = self._global_costs
+        totals = self._global_costs
         if exclude is None:
-            return cost0.copy(), cost1.copy()
-        own0, own1 = self.source_costs(exclude)
-        weight = self.source_weights[exclude]
-        return cost0 - weight * own0, cost1 - weight * own1
+            return totals.copy()
+        result: FloatArray = totals - self.source_weights[exclude] * self.source_costs(exclude)
+        return result
 
 
-def report_costs(matrix: LabelMatrix, index: int, report: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Cost vectors of source ``index``'s private risk if its labels were ``report``.
+def report_costs(matrix: LabelMatrix, index: int, report: np.ndarray) -> FloatArray:
+    """``(m, K)`` cost array of source ``index``'s private risk if its labels were ``report``.
 
-    Only items the source labelled count; ``report`` is read as 0/1 on them.
+    Only items the source labelled count; ``report`` holds one class index per item.
     """
-    share = np.where(matrix.labelled[index], matrix.item_weights, 0.0) / matrix.coverage_weight[index]
-    positive = np.asarray(report).astype(bool)
-    return np.where(positive, share, 0.0), np.where(positive, 0.0, share)
+    own = matrix.sources[index]
+    classes = np.asarray(report, dtype=np.int64)[own.items]
+    lied = SourceLabels(own.source_id, own.items, classes, own.item_weights, own.weight, own.coverage)
+    return private_costs(lied, matrix.n_items, matrix.n_classes)
+
+
+def normalised_weights(source_weights: Mapping[str, float], present: Sequence[str]) -> FloatArray:
+    """Registry weights of the sources ``present`` (sorted ids), normalised to sum 1.
+
+    :raises UnknownReferenceError, WeightError: a source missing from the registry, or a
+        weight that is not positive and finite.
+    """
+    missing = [s for s in present if s not in source_weights]
+    if missing:
+        raise UnknownReferenceError(f"sources missing from the registry: {', '.join(missing)}")
+    raw_weights = np.array([float(source_weights[s]) for s in present])
+    if not np.isfinite(raw_weights).all() or (raw_weights <= 0).any():
+        bad = [s for s, w in zip(present, raw_weights) if not (np.isfinite(w) and w > 0)]
+        raise WeightError(f"source weights must be positive and finite: {', '.join(bad)}")
+    result: FloatArray = raw_weights / raw_weights.sum()
+    return result
 
 
 def build_label_matrix(
     labels: pd.DataFrame,
     items: pd.DataFrame,
     source_weights: Mapping[str, float],
+    n_classes: int = 2,
 ) -> LabelMatrix:
     """Build a :class:`LabelMatrix` from the long label table.
 
-    :param labels: columns ``item_id``, ``source_id``, ``label`` (bool or 0/1); one row
-        per (item, source); a source need not label every item.
+    :param labels: columns ``item_id``, ``source_id``, ``label`` (class index
+        ``0 .. n_classes - 1``, or bool when ``n_classes`` is 2); one row per
+        (item, source); a source need not label every item.
     :param items: column ``item_id`` (unique) and optionally ``item_weight``.
     :param source_weights: registry weight ``w_i > 0`` of every source present.
-    :raises NoSourcesError, NoItemsError, WeightError, UnknownReferenceError: on
-        impossible inputs; nothing is guessed.
+    :param n_classes: ``K``, the number of classes.
+    :raises NoSourcesError, NoItemsError, WeightError, UnknownReferenceError,
+        ClassIndexError: on impossible inputs; nothing is guessed.
 
     >>> import pandas as pd
     >>> m = build_label_matrix(
@@ -148,13 +187,7 @@ def build_label_matrix(
     present = sorted(str(s) for s in source_names)
     if not present:
         raise NoSourcesError("no source labelled any item")
-    missing = [s for s in present if s not in source_weights]
-    if missing:
-        raise UnknownReferenceError(f"sources missing from the registry: {', '.join(missing)}")
-    raw_weights = np.array([float(source_weights[s]) for s in present])
-    if not np.isfinite(raw_weights).all() or (raw_weights <= 0).any():
-        bad = [s for s, w in zip(present, raw_weights) if not (np.isfinite(w) and w > 0)]
-        raise WeightError(f"source weights must be positive and finite: {', '.join(bad)}")
+    weights = normalised_weights(source_weights, present)
 
     label_items = id_array(labels["item_id"])
     found = pc.index_in(label_items, value_set=pa.array(item_ids, pa.string()))
@@ -168,7 +201,11 @@ def build_label_matrix(
     shape = (len(present), len(item_ids))
     dense_labels = np.zeros(shape, dtype=np.int8)
     labelled = np.zeros(shape, dtype=bool)
-    dense_labels[rows, columns] = labels["label"].to_numpy().astype(np.int8)
+    classes = labels["label"].to_numpy()  # no copy: 10M labels stay one int8 pass
+    if len(classes) and (classes.min() < 0 or classes.max() >= n_classes):
+        bad = int(np.flatnonzero((classes < 0) | (classes >= n_classes))[0])
+        raise ClassIndexError(f"label {classes[bad]} in row {bad} is not a class index 0..{n_classes - 1}")
+    dense_labels[rows, columns] = classes.astype(np.int8)
     labelled[rows, columns] = True
 
     matrix = LabelMatrix(
@@ -177,7 +214,8 @@ def build_label_matrix(
         labels=dense_labels,
         labelled=labelled,
         item_weights=item_weights,
-        source_weights=raw_weights / raw_weights.sum(),
+        source_weights=weights,
+        n_classes=n_classes,
     )
     empty = [s for s, c in zip(present, matrix.coverage_weight) if not c > 0]
     if empty:
@@ -185,7 +223,7 @@ def build_label_matrix(
     return matrix
 
 
-def id_array(values) -> pa.Array:
+def id_array(values: Any) -> pa.Array:
     """Ids as one Arrow string array: from an Arrow column, a pandas column or index, or a list."""
     if not isinstance(values, (pa.Array, pa.ChunkedArray)):
         try:
@@ -199,7 +237,7 @@ def id_array(values) -> pa.Array:
     return values
 
 
-def as_ids(values) -> np.ndarray:
+def as_ids(values: Any) -> np.ndarray:
     """Ids as a NumPy unicode array: sorts and compares in C, whatever pandas' string dtype."""
     return np.asarray(values, dtype=object).astype(str)
 

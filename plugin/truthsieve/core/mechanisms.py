@@ -8,10 +8,25 @@ sampling). Mechanisms:
 * dictator lotteries: source ``i`` is drawn with a fixed probability ``p_i`` and gets
   its own ERM on its own labels (whose tie-break depends only on the items). Nothing a
   source reports changes ``p`` or any other source's rule, and its own ERM is the best
-  it can get, so truthful reporting is a dominant strategy. With shared inputs the
+  it can get, so truthful reporting is a dominant strategy, for any number ``K`` of
+  classes (this step uses no property of the loss at all). With shared inputs the
   triangle inequality on the weighted Hamming distance gives, for every fixed ``p``,
 
       E[R] <= r* * (1 + 2 * max_i p_i (1 - w_i) / w_i),
+
+  **for any K.** Under 0-1 loss, ``R_i(c) = d(c, y_i)`` with
+  ``d(a, b) = sum_{j in S} u_j [a_j != b_j] / U`` on the shared items ``S``: a weighted
+  sum of discrete metrics on the alphabet ``{0 .. K-1}``, hence a (pseudo)metric
+  whatever ``K`` is. Let ``c*`` be the ERM, ``r* = sum_k w_k d(c*, y_k)`` and ``c_i``
+  source ``i``'s own ERM, so ``d(c_i, y_i) <= d(c*, y_i)``. For ``k != i``,
+  ``d(c_i, y_k) <= d(c_i, c*) + d(c*, y_k)`` and
+  ``d(c_i, c*) <= d(c_i, y_i) + d(y_i, c*) <= 2 d(c*, y_i)``; hence
+  ``R(c_i) <= w_i d(c*, y_i) + sum_{k != i} w_k (d(c*, y_k) + 2 d(c*, y_i))
+  = r* + 2 (1 - w_i) d(c*, y_i)`` and
+  ``E[R] = sum_i p_i R(c_i) <= r* + 2 sum_i [p_i (1 - w_i) / w_i] w_i d(c*, y_i)
+  <= r* (1 + 2 max_i p_i (1 - w_i) / w_i)``. Only symmetry and the triangle
+  inequality were used, so the binary bound carries over unchanged, and the binary
+  instances that make it tight stay valid as a subdomain.
 
   with ``w`` the weights normalised over the sources present. That is ``3 - 2/n`` for
   ``random_dictator`` with equal weights, ``3 - 2 min w`` for ``weighted_dictator``
@@ -20,7 +35,8 @@ sampling). Mechanisms:
   Intelligence 186, 2012). The guarantee is always recomputed from this general
   formula with the probabilities actually used for the sources present.
 
-* ``two_rule_vote`` and ``two_rule_lottery`` for the ``constant`` class: each source
+* ``two_rule_vote`` and ``two_rule_lottery`` for the ``constant`` class of two
+  classes (exactly two rules; any other class is refused): each source
   votes its item-weighted majority label; with ``t`` the weight voting 1 the vote
   picks all-1 when ``t > 1/2`` (ties: all-0), the lottery puts ``t / (2(1 - t))`` on
   all-1 for ``t <= 1/2`` and ``(1 - t) / (2t)`` on all-0 for ``t >= 1/2``. Worst-case
@@ -53,13 +69,14 @@ mechanisms' P(all-1) is non-decreasing in ``t``.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
 
 from truthsieve.core.labels import TIE_TOLERANCE, LabelMatrix, risk_is_zero
-from truthsieve.core.rules import RuleClass, first_minimum
+from truthsieve.core.rules import RuleClass
+from truthsieve.core.statistics import FloatArray, IntArray, SourceLabels, shared_inputs
 from truthsieve.exceptions import MechanismError
 
 
@@ -90,24 +107,34 @@ class MechanismResult:
 
 
 def fit_consensus(matrix: LabelMatrix, rule_class: RuleClass) -> ConsensusFit:
-    risks = rule_class.risks(*matrix.global_costs())
-    best = first_minimum(risks)
-    return ConsensusFit(rule=best, risk=float(risks[best]))
+    """The ERM over the global risk of the whole night's matrix."""
+    return fit_from_totals(matrix.global_costs(), rule_class)
 
 
-def own_best_rules(matrix: LabelMatrix, rule_class: RuleClass) -> np.ndarray:
+def fit_from_totals(totals: FloatArray, rule_class: RuleClass) -> ConsensusFit:
+    """The ERM from the night's ``(m, K)`` summed costs alone (no label matrix needed)."""
+    best, risk = rule_class.fit_with_risk(totals)
+    return ConsensusFit(rule=best, risk=risk)
+
+
+def own_best_rule(source: SourceLabels, rule_class: RuleClass) -> int:
+    """A source's ERM on its own labels alone (its dictator rule): O(K |S_i|) plus the cuts."""
+    return rule_class.fit(source.sparse_costs(rule_class.n_classes), items=source.items)
+
+
+def own_best_rules(matrix: LabelMatrix, rule_class: RuleClass) -> IntArray:
     """Each source's ERM on its own labels alone (its dictator rule)."""
-    return np.array([rule_class.fit(*matrix.source_costs(i)) for i in range(matrix.n_sources)])
+    return np.array([own_best_rule(s, rule_class) for s in matrix.sources], dtype=np.int64)
 
 
-def dictator_guarantee(probabilities: np.ndarray, weights: np.ndarray) -> float:
+def dictator_guarantee(probabilities: FloatArray, weights: FloatArray) -> float:
     """Worst-case ratio ``1 + 2 max_i p_i (1 - w_i) / w_i`` of a fixed dictator lottery."""
     if len(weights) == 1:
         return 1.0
     return float(1.0 + 2.0 * np.max(probabilities * (1.0 - weights) / weights))
 
 
-def dictator_scores(name: str, present: np.ndarray, registry_total: float | None = None) -> np.ndarray:
+def dictator_scores(name: str, present: FloatArray, registry_total: float | None = None) -> FloatArray:
     """The fixed score ``a_j`` of each present source (see the module docstring).
 
     :param present: registry weights (not normalised) of the sources present.
@@ -124,19 +151,21 @@ def dictator_scores(name: str, present: np.ndarray, registry_total: float | None
         shares = present / total
         if len(present) == 1:
             return np.ones(1)  # also the case share = 1 (a registry of one source)
-        return shares / (1.0 - shares)
+        odds: FloatArray = shares / (1.0 - shares)
+        return odds
     raise MechanismError(f"{name!r} is not a dictator mechanism")
 
 
-def dictator_probabilities(name: str, weights: np.ndarray, registry_total: float | None = None) -> np.ndarray:
+def dictator_probabilities(name: str, weights: FloatArray, registry_total: float | None = None) -> FloatArray:
     """``p_j = a_j / sum_k a_k`` over the sources present (weights need not be normalised)."""
     if len(weights) == 1:
         return np.ones(1)
     scores = dictator_scores(name, weights, registry_total)
-    return scores / scores.sum()
+    probabilities: FloatArray = scores / scores.sum()
+    return probabilities
 
 
-def registry_guarantee(name: str, registry_weights: np.ndarray) -> float:
+def registry_guarantee(name: str, registry_weights: FloatArray) -> float:
     """Worst-case ratio of mechanism ``name`` when every registered source takes part.
 
     Depends on the configuration alone, so no source's labels or absence can move it.
@@ -152,15 +181,15 @@ def registry_guarantee(name: str, registry_weights: np.ndarray) -> float:
     return dictator_guarantee(dictator_probabilities(name, weights), normalised)
 
 
-def two_rule_vote_share(matrix: LabelMatrix) -> float:
+def two_rule_vote_share(matrix: LabelMatrix | Sequence[SourceLabels]) -> float:
     """``t``: the normalised weight of sources whose item-weighted majority label is 1."""
-    cost0, cost1 = (np.zeros(matrix.n_sources), np.zeros(matrix.n_sources))
-    for i in range(matrix.n_sources):
-        c0, c1 = matrix.source_costs(i)
-        cost0[i], cost1[i] = c0.sum(), c1.sum()
+    sources = matrix.sources if isinstance(matrix, LabelMatrix) else matrix
     # A source prefers all-1 when predicting 0 would cost it more; exact ties vote 0.
-    votes_one = cost0 > cost1 + TIE_TOLERANCE
-    return float(matrix.source_weights[votes_one].sum())
+    votes_one = np.array(
+        [s.shares[s.classes != 0].sum() > s.shares[s.classes != 1].sum() + TIE_TOLERANCE for s in sources], dtype=bool
+    )
+    weights = np.array([s.weight for s in sources], dtype=np.float64)
+    return float(weights[votes_one].sum())
 
 
 def two_rule_lottery_probability_one(t: float) -> float:
@@ -174,6 +203,21 @@ MECHANISMS = ("erm", "random_dictator", "weighted_dictator", "tuned_dictator", "
 DICTATORS = ("random_dictator", "weighted_dictator", "tuned_dictator")
 
 
+def check_applies(name: str, rule_class: RuleClass) -> None:
+    """Refuse an unknown mechanism, or a two-rule mechanism on a class that is not exactly
+    the two constant rules.
+
+    :raises MechanismError: with the reason in one line.
+    """
+    if name not in MECHANISMS:
+        raise MechanismError(f"unknown mechanism {name!r}; expected one of {', '.join(MECHANISMS)}")
+    if name.startswith("two_rule") and (rule_class.kind != "constant" or rule_class.size != 2):
+        raise MechanismError(
+            f"{name} needs the constant rule class of exactly two rules (two classes), "
+            f"not {rule_class.kind!r} with {rule_class.size} rules"
+        )
+
+
 def run_mechanism(
     name: str,
     matrix: LabelMatrix,
@@ -181,36 +225,50 @@ def run_mechanism(
     consensus: ConsensusFit | None = None,
     registry_weights: Mapping[str, float] | None = None,
 ) -> MechanismResult:
+    """Run mechanism ``name`` on the whole night's matrix (see :func:`run_from_statistics`)."""
+    return run_from_statistics(name, matrix.global_costs(), matrix.sources, rule_class, consensus, registry_weights)
+
+
+def run_from_statistics(
+    name: str,
+    totals: FloatArray,
+    sources: Sequence[SourceLabels],
+    rule_class: RuleClass,
+    consensus: ConsensusFit | None = None,
+    registry_weights: Mapping[str, float] | None = None,
+) -> MechanismResult:
     """Run mechanism ``name`` and return its exact lottery, expected risk and ratio.
 
+    :param totals: the night's ``(m, K)`` summed costs.
+    :param sources: every present source's sparse labels, in source order.
     :param registry_weights: registry weight of every *registered* source (present or
         not); ``tuned_dictator`` fixes its odds from them. None: the sources present are
         the whole registry.
     :raises MechanismError: unknown name, or a two-rule mechanism on another class.
     """
-    if name not in MECHANISMS:
-        raise MechanismError(f"unknown mechanism {name!r}; expected one of {', '.join(MECHANISMS)}")
-    if name.startswith("two_rule") and rule_class.kind != "constant":
-        raise MechanismError(f"{name} needs the constant rule class, not {rule_class.kind!r}")
-    consensus = consensus or fit_consensus(matrix, rule_class)
-    rule_risks = rule_class.risks(*matrix.global_costs())
+    check_applies(name, rule_class)
+    consensus = consensus or fit_from_totals(totals, rule_class)
+    rule_risks = rule_class.risks(totals)
+    entries: list[tuple[str | None, float, int]]
 
     if name == "erm":
         entries = [(None, 1.0, consensus.rule)]
         guarantee, applies = 1.0, True
     elif name in DICTATORS:
+        weights = np.array([s.weight for s in sources], dtype=np.float64)
+        total: float | None
         if registry_weights is None:
-            present, total = matrix.source_weights, None
+            present, total = weights, None
         else:
-            present = np.array([float(registry_weights[s]) for s in matrix.source_ids])
+            present = np.array([float(registry_weights[s.source_id]) for s in sources])
             total = float(sum(registry_weights.values()))
         probabilities = dictator_probabilities(name, present, total)
-        rules = own_best_rules(matrix, rule_class)
-        entries = [(s, float(p), int(r)) for s, p, r in zip(matrix.source_ids, probabilities, rules)]
-        guarantee = dictator_guarantee(probabilities, matrix.source_weights)
-        applies = matrix.shared_inputs or matrix.n_sources == 1
+        rules = [own_best_rule(s, rule_class) for s in sources]
+        entries = [(s.source_id, float(p), int(r)) for s, p, r in zip(sources, probabilities, rules)]
+        guarantee = dictator_guarantee(probabilities, weights)
+        applies = shared_inputs(sources) or len(sources) == 1
     else:
-        t = two_rule_vote_share(matrix)
+        t = two_rule_vote_share(sources)
         if name == "two_rule_vote":
             p_one = 1.0 if t > 0.5 + TIE_TOLERANCE else 0.0
             guarantee = 3.0

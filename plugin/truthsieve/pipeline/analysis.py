@@ -2,6 +2,14 @@
 
 Pure: no files, no clock. It wires the core together in the order the decision reads:
 consensus fit, mechanism, per-source incentives, Dawid-Skene, agreement, flags.
+
+Two paths give the same floats. The whole-night path (:func:`prepare`,
+:func:`analyse_batch`) builds the dense label matrix. The split path, for work mapped
+by source, never does: :func:`night_items` (items, weights, rule class),
+:func:`source_statistics` (one source's sparse labels), :func:`sum_statistics` (the
+night's ``(m, K)`` summed costs, in source order), :func:`fit_from_totals` (the
+consensus fit) and :func:`analyse_one_source` (one source's incentives from the sum
+and its own labels).
 """
 
 from __future__ import annotations
@@ -12,14 +20,21 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+import pyarrow as pa
+import pyarrow.compute as pc
+
+from truthsieve.core import mechanisms
+from truthsieve.core import statistics as core_statistics
 from truthsieve.core.agreement import fleiss_kappa, krippendorff_alpha_nominal
 from truthsieve.core.dawid_skene import DawidSkeneFit, dawid_skene
-from truthsieve.core.incentives import SourceIncentive, incentive_context, source_incentive
-from truthsieve.core.labels import LabelMatrix, build_label_matrix
+from truthsieve.core.incentives import SourceIncentive, analyse_source, context_from_totals, incentive_context, source_incentive
+from truthsieve.core.labels import LabelMatrix, as_ids, build_label_matrix, id_array, normalised_weights
 from truthsieve.core.mechanisms import ConsensusFit, MechanismResult, fit_consensus, run_mechanism
 from truthsieve.core.rules import RuleClass, build_rule_class
 from truthsieve.core.sampling import items_needed
 from truthsieve.core.source_checks import SourceHistory, SourceReport, assess_sources
+from truthsieve.core.statistics import FloatArray, SourceLabels
+from truthsieve.exceptions import ClassIndexError, UnknownReferenceError, WeightError
 from truthsieve.pipeline.config import Config
 
 
@@ -37,20 +52,112 @@ class BatchAnalysis:
     items_needed: int
 
 
-def prepare(labels: pd.DataFrame, items: pd.DataFrame, config: Config) -> tuple[LabelMatrix, RuleClass, ConsensusFit]:
-    """The label matrix, the rule class and the consensus fit."""
+def class_count(config: Config, n_classes: int | None = None) -> int:
+    """``K``: the explicit ``n_classes``, else the length of ``config.classes``, else 2."""
+    if n_classes is not None:
+        return n_classes
+    names = getattr(config, "classes", None)
+    return len(names) if names else 2
+
+
+def prepare(
+    labels: pd.DataFrame, items: pd.DataFrame, config: Config, *, n_classes: int | None = None
+) -> tuple[LabelMatrix, RuleClass, ConsensusFit]:
+    """The label matrix, the rule class and the consensus fit (labels are class indices)."""
+    k = class_count(config, n_classes)
     weights = {s.source_id: s.weight for s in config.sources}
-    matrix = build_label_matrix(labels, items, weights)
-    rule_class = build_rule_class(config.rule_class.kind, items, matrix.item_ids, config.rule_class.features)
+    matrix = build_label_matrix(labels, items, weights, n_classes=k)
+    rule_class = build_rule_class(config.rule_class.kind, items, matrix.item_ids, config.rule_class.features, k)
     return matrix, rule_class, fit_consensus(matrix, rule_class)
 
 
 def agreement(matrix: LabelMatrix) -> tuple[float | None, float | None]:
     """(Krippendorff's alpha over all labels, Fleiss' kappa when every item has equal counts)."""
     ratings = np.where(matrix.labelled, matrix.labels.astype(np.float64), np.nan)
-    ones = (matrix.labelled & (matrix.labels == 1)).sum(axis=0)
-    zeros = (matrix.labelled & (matrix.labels == 0)).sum(axis=0)
-    return krippendorff_alpha_nominal(ratings), fleiss_kappa(np.stack([zeros, ones], axis=1))
+    counts = [(matrix.labelled & (matrix.labels == k)).sum(axis=0) for k in range(matrix.n_classes)]
+    return krippendorff_alpha_nominal(ratings), fleiss_kappa(np.stack(counts, axis=1))
+
+
+@dataclass(frozen=True)
+class NightItems:
+    """The night's items in code order (sorted ids), their weights and the rule class."""
+
+    item_ids: np.ndarray
+    item_weights: FloatArray
+    rule_class: RuleClass
+
+    @property
+    def n_items(self) -> int:
+        return len(self.item_ids)
+
+
+def night_items(items: pd.DataFrame, config: Config, *, n_classes: int | None = None) -> NightItems:
+    """Item codes, weights and rule class, exactly as :func:`prepare` orders them."""
+    raw_ids = as_ids(items["item_id"])
+    order = np.argsort(raw_ids, kind="stable")
+    item_ids = raw_ids[order]
+    if "item_weight" in items.columns:
+        weights = items["item_weight"].to_numpy(dtype=np.float64)[order]
+    else:
+        weights = np.ones(len(item_ids))
+    if not np.isfinite(weights).all() or (weights < 0).any():
+        raise WeightError("item weights must be finite and non-negative")
+    k = class_count(config, n_classes)
+    rule_class = build_rule_class(config.rule_class.kind, items, item_ids, config.rule_class.features, k)
+    return NightItems(item_ids, weights, rule_class)
+
+
+def source_weights(config: Config, present: Sequence[str]) -> dict[str, float]:
+    """Normalised weights of the sources present tonight (the same floats as the matrix's)."""
+    ordered = sorted(present)
+    registry = {s.source_id: s.weight for s in config.sources}
+    return dict(zip(ordered, (float(w) for w in normalised_weights(registry, ordered))))
+
+
+def source_statistics(labels: pd.DataFrame, source_id: str, night: NightItems, weight: float) -> SourceLabels:
+    """One source's sparse labels from its long rows (``item_id``, ``label`` as class index).
+
+    :param weight: the source's normalised weight (:func:`source_weights`).
+    """
+    label_items = id_array(labels["item_id"])
+    found = pc.index_in(label_items, value_set=pa.array(night.item_ids, pa.string()))
+    if found.null_count:
+        unknown = label_items.filter(found.is_null())[0].as_py()
+        raise UnknownReferenceError(f"label of source {source_id!r} on unknown item {unknown!r}")
+    codes = found.to_numpy(zero_copy_only=False)
+    classes = labels["label"].to_numpy().astype(np.int64)
+    k = night.rule_class.n_classes
+    if len(classes) and (classes.min() < 0 or classes.max() >= k):
+        raise ClassIndexError(f"source {source_id!r}: a label is not a class index 0..{k - 1}")
+    return core_statistics.source_statistics(source_id, codes, classes, night.item_weights, weight)
+
+
+def sum_statistics(sources: Sequence[SourceLabels], night: NightItems) -> FloatArray:
+    """The night's ``(m, K)`` summed costs; pass the sources in source-id order."""
+    return core_statistics.sum_statistics(sorted(sources, key=lambda s: s.source_id), night.n_items, night.rule_class.n_classes)
+
+
+def fit_from_totals(totals: FloatArray, night: NightItems) -> ConsensusFit:
+    """The consensus fit from the summed costs alone."""
+    return mechanisms.fit_from_totals(totals, night.rule_class)
+
+
+def analyse_one_source(
+    totals: FloatArray,
+    own: SourceLabels,
+    night: NightItems,
+    consensus: ConsensusFit,
+    budget: int | None = None,
+    global_linear: FloatArray | None = None,
+) -> SourceIncentive:
+    """One source's incentive analysis from the summed costs and its own labels only.
+
+    :param global_linear: :func:`~truthsieve.core.incentives.context_from_totals` of
+        ``totals``, to share across sources in one process (computed when None).
+    """
+    if global_linear is None:
+        global_linear = context_from_totals(totals, night.rule_class)
+    return analyse_source(global_linear, own, night.rule_class, consensus, budget)
 
 
 def analyse_batch(
@@ -59,13 +166,16 @@ def analyse_batch(
     config: Config,
     history: Mapping[str, SourceHistory],
     incentives: Sequence[SourceIncentive] | None = None,
+    *,
+    n_classes: int | None = None,
 ) -> BatchAnalysis:
     """Every number of one batch.
 
     :param incentives: per-source results computed elsewhere (e.g. in mapped Airflow
         tasks); computed here when None.
+    :param n_classes: ``K`` (default: from ``config.classes``, else 2).
     """
-    matrix, rule_class, consensus = prepare(labels, items, config)
+    matrix, rule_class, consensus = prepare(labels, items, config, n_classes=n_classes)
     if incentives is None:
         budget = config.analysis.incentive_budget
         # The shared global risks are what a lone mapped task computes too: same floats.

@@ -1,0 +1,180 @@
+"""The threshold class over ``K`` classes: one feature, one cut, a class on each side.
+
+Each feature is sorted once when the class is built and every item
+gets its cut bin (how many cuts lie below it). With ``Δ_k(b) = sum_{j below cut k}
+(costs[j, b] - costs[j, 0])`` (``Δ_k(0) = 0``, one ``bincount`` and prefix sum per
+class ``b >= 1``) and ``T(a) = sum_j costs[j, a]``, the rule ``(cut k, above a,
+below b)`` costs ``α_k(a) + Δ_k(b)`` with ``α_k(a) = T(a) - Δ_k(a)`` (for ``b = 0``
+just ``α_k(a)``; for ``K = 2`` these are exactly the former ``T(0) + B_k`` and
+``T(1) - B_k``). All risks: O(d m K + cuts K²). ERM (:meth:`ThresholdRules.fit`) never
+lists the pairs: floating-point addition is monotone in each argument, so per cut only
+the best and second-best ``above`` and ``below`` matter, O(d m K) in all, and the
+first rule within the tolerance of the minimum is found cut by cut in the same order.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import numpy.typing as npt
+import pandas as pd
+
+from truthsieve.core.labels import TIE_TOLERANCE
+from truthsieve.core.rule_class import RuleClass, RuleForm, class_totals
+from truthsieve.core.statistics import FloatArray, IntArray
+from truthsieve.exceptions import RuleClassError
+
+
+@dataclass(frozen=True)
+class _SortedFeature:
+    name: str
+    order: IntArray  # item positions in increasing feature value
+    split_after: IntArray  # k: a cut lies between sorted positions k-1 and k
+    cuts: FloatArray  # midpoints, increasing
+    values: FloatArray  # the feature, in item order
+    bins: npt.NDArray[np.int32]  # per item (item order): how many cuts lie below its value
+
+
+def ordered_pairs(n_classes: int) -> IntArray:
+    """``(above, below)`` with ``above != below``, lexicographic: shape ``(K (K-1), 2)``."""
+    return np.array([(a, b) for a in range(n_classes) for b in range(n_classes) if a != b], dtype=np.int64)
+
+
+class ThresholdRules(RuleClass):
+    """One feature, one cut: ``x > cut`` gets class ``above``, the rest class ``below``.
+
+    Cuts are midpoints between consecutive distinct observed values; the ``K``
+    constant rules are members too (indices ``0 .. K-1``).
+    """
+
+    kind = "threshold"
+
+    def __init__(self, features: pd.DataFrame, n_classes: int = 2) -> None:
+        self.n_items = len(features)
+        self.n_classes = n_classes
+        self.pairs = ordered_pairs(n_classes)
+        self.features: list[_SortedFeature] = []
+        for name in features.columns:
+            values = features[name].to_numpy(dtype=np.float64)
+            order = np.argsort(values, kind="stable")
+            ordered = values[order]
+            split_after = np.flatnonzero(ordered[1:] > ordered[:-1]) + 1
+            if len(split_after) == 0:
+                continue
+            low, high = ordered[split_after - 1], ordered[split_after]
+            # low + (high - low) / 2 cannot overflow; between adjacent floats it may round
+            # up to high, and then low itself is the cut that separates the two.
+            cuts = low + (high - low) / 2.0
+            cuts = np.where(cuts < high, cuts, low)
+            # The item at sorted position p lies above cut k iff split_after[k] <= p.
+            bins = np.empty(len(values), dtype=np.int32)
+            bins[order] = np.searchsorted(split_after, np.arange(len(values)), side="right")
+            self.features.append(_SortedFeature(str(name), order, split_after, cuts, values, bins))
+        if not self.features:
+            raise RuleClassError(
+                "threshold class has no usable feature: every configured feature is "
+                "constant across the items"
+            )
+        per_cut = len(self.pairs)
+        self.offsets = np.cumsum([n_classes] + [per_cut * len(f.cuts) for f in self.features])
+        self.size = int(self.offsets[-1])
+
+    def _parts(
+        self, costs: FloatArray, items: IntArray | None
+    ) -> tuple[FloatArray, list[tuple[FloatArray, FloatArray]]]:
+        """``T`` and, per feature, ``(α, Δ)`` of shape ``(cuts, K)`` (``Δ[:, 0] = 0``)."""
+        costs = np.asarray(costs, dtype=np.float64)
+        totals = class_totals(costs)
+        difference = costs[:, 1:] - costs[:, :1]
+        parts = []
+        for feature in self.features:
+            n_cuts = len(feature.cuts)
+            bins = feature.bins if items is None else feature.bins[items]
+            delta = np.zeros((n_cuts, self.n_classes))
+            for b in range(1, self.n_classes):
+                column = np.ascontiguousarray(difference[:, b - 1])
+                delta[:, b] = np.cumsum(np.bincount(bins, weights=column, minlength=n_cuts + 1)[:n_cuts])
+            alpha = np.empty((n_cuts, self.n_classes))
+            alpha[:, 0] = totals[0]
+            alpha[:, 1:] = totals[1:] - delta[:, 1:]
+            parts.append((alpha, delta))
+        return totals, parts
+
+    @staticmethod
+    def _pair_risks(alpha: FloatArray, delta: FloatArray, above: IntArray, below: IntArray) -> FloatArray:
+        # b = 0 adds nothing (Δ(0) = 0), so K = 2 keeps the former floats exactly.
+        out: FloatArray = alpha[:, above]
+        adds = below > 0
+        out[:, adds] += delta[:, below[adds]]
+        return out
+
+    def linear_risks(self, costs: FloatArray, items: IntArray | None = None) -> FloatArray:
+        totals, parts = self._parts(costs, items)
+        out = np.empty(self.size)
+        out[: self.n_classes] = totals
+        above, below = self.pairs[:, 0], self.pairs[:, 1]
+        for (alpha, delta), start, stop in zip(parts, self.offsets[:-1], self.offsets[1:]):
+            out[start:stop] = self._pair_risks(alpha, delta, above, below).ravel()
+        return out
+
+    def fit_with_risk(self, costs: FloatArray, items: IntArray | None = None) -> tuple[int, float]:
+        """Exact ERM without listing the pairs: per cut the best pair is (best ``above``,
+        best ``below``) unless both are the same class, and then the better of (best,
+        second ``below``) and (second ``above``, best). Same result as the first
+        minimum of :meth:`risks`, tie-break included."""
+        totals, parts = self._parts(costs, items)
+        best_per_feature = [self._best_pair_values(alpha, delta) for alpha, delta in parts]
+        minimum = max(min([float(totals.min())] + [float(b.min()) for b in best_per_feature]), 0.0)
+        limit = minimum + TIE_TOLERANCE
+        if (totals <= limit).any():
+            k = int(np.flatnonzero(totals <= limit)[0])
+            return k, float(np.maximum(totals[k], 0.0))
+        for (alpha, delta), best, start in zip(parts, best_per_feature, self.offsets[:-1]):
+            hits = np.flatnonzero(best <= limit)
+            if len(hits) == 0:
+                continue
+            cut = int(hits[0])
+            values = self._pair_risks(alpha[cut : cut + 1], delta[cut : cut + 1], self.pairs[:, 0], self.pairs[:, 1])[0]
+            position = int(np.flatnonzero(values <= limit)[0])
+            return int(start) + cut * len(self.pairs) + position, float(np.maximum(values[position], 0.0))
+        raise AssertionError("unreachable: the minimum is attained by some rule")
+
+    def _best_pair_values(self, alpha: FloatArray, delta: FloatArray) -> FloatArray:
+        """``min_{a != b} risk(a, b)`` per cut, O(cuts K)."""
+        rows = np.arange(len(alpha))
+        order_a = np.argsort(alpha, axis=1, kind="stable")[:, :2]
+        order_b = np.argsort(delta, axis=1, kind="stable")[:, :2]
+        a1, a2, b1, b2 = order_a[:, 0], order_a[:, 1], order_b[:, 0], order_b[:, 1]
+
+        def risk(a: IntArray, b: IntArray) -> FloatArray:
+            out: FloatArray = np.where(b == 0, alpha[rows, a], alpha[rows, a] + delta[rows, b])
+            return out
+
+        distinct = risk(a1, b1)
+        # When a1 = b1 = c the constant rule c is at least as good (in exact arithmetic),
+        # so this branch rarely decides the fit; it keeps the value exact all the same.
+        same = np.minimum(risk(a1, b2), risk(a2, b1))
+        result: FloatArray = np.where(a1 != b1, distinct, same)
+        return result
+
+    def locate(self, index: int) -> tuple[_SortedFeature, int, int, int]:
+        """(feature, cut position, above class, below class) of a non-constant rule."""
+        block = int(np.searchsorted(self.offsets, index, side="right")) - 1
+        feature = self.features[block]
+        position, pair = divmod(index - int(self.offsets[block]), len(self.pairs))
+        return feature, position, int(self.pairs[pair, 0]), int(self.pairs[pair, 1])
+
+    def predict(self, index: int, items: IntArray | None = None) -> IntArray:
+        if index < self.n_classes:
+            return np.full(self.n_items if items is None else len(items), int(index), dtype=np.int64)
+        feature, position, above, below = self.locate(index)
+        values = feature.values if items is None else feature.values[items]
+        return np.where(values > feature.cuts[position], above, below).astype(np.int64)
+
+    def describe(self, index: int) -> RuleForm:
+        if index < self.n_classes:
+            return {"kind": "constant", "label": int(index)}
+        feature, position, above, below = self.locate(index)
+        cut = float(feature.cuts[position])
+        return {"kind": "threshold", "feature": feature.name, "cut": cut, "above": above, "below": below}
