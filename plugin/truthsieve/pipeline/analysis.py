@@ -25,7 +25,7 @@ import pyarrow.compute as pc
 
 from truthsieve.core import mechanisms
 from truthsieve.core import statistics as core_statistics
-from truthsieve.core.agreement import fleiss_kappa, krippendorff_alpha_nominal
+from truthsieve.core.agreement import batch_agreement
 from truthsieve.core.dawid_skene import DawidSkeneFit, dawid_skene
 from truthsieve.core.incentives import SourceIncentive, analyse_source, context_from_totals, incentive_context, source_incentive
 from truthsieve.core.labels import LabelMatrix, as_ids, build_label_matrix, id_array, normalised_weights
@@ -69,13 +69,6 @@ def prepare(
     matrix = build_label_matrix(labels, items, weights, n_classes=k)
     rule_class = build_rule_class(config.rule_class.kind, items, matrix.item_ids, config.rule_class.features, k)
     return matrix, rule_class, fit_consensus(matrix, rule_class)
-
-
-def agreement(matrix: LabelMatrix) -> tuple[float | None, float | None]:
-    """(Krippendorff's alpha over all labels, Fleiss' kappa when every item has equal counts)."""
-    ratings = np.where(matrix.labelled, matrix.labels.astype(np.float64), np.nan)
-    counts = [(matrix.labelled & (matrix.labels == k)).sum(axis=0) for k in range(matrix.n_classes)]
-    return krippendorff_alpha_nominal(ratings), fleiss_kappa(np.stack(counts, axis=1))
 
 
 @dataclass(frozen=True)
@@ -186,12 +179,15 @@ def analyse_batch(
     reliability = dawid_skene(
         matrix.labels,
         matrix.labelled,
+        n_classes=matrix.n_classes,
         tolerance=config.analysis.dawid_skene_tolerance,
         max_iterations=config.analysis.dawid_skene_max_iterations,
     )
     consensus_labels = rule_class.predict(consensus.rule)
-    reports = assess_sources(matrix, consensus_labels, incentives, reliability, history, config.routing.thresholds())
-    alpha, fleiss = agreement(matrix)
+    reports = assess_sources(
+        matrix, consensus_labels, incentives, reliability, history, config.routing.thresholds(), n_classes=matrix.n_classes
+    )
+    alpha, fleiss = batch_agreement(matrix.labels, matrix.labelled, matrix.n_classes)
     return BatchAnalysis(
         matrix=matrix,
         rule_class=rule_class,
