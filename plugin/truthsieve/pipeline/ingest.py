@@ -41,7 +41,7 @@ from truthsieve.pipeline.records import MAX_ROWS_PER_RULE, ErrorRecord, FileChec
 
 __all__ = ["ErrorRecord", "FileCheck", "InputFile", "quarantine_bytes", "validate_items", "validate_source", "source_folders", "batch_folder"]
 
-SOURCE_ID_RE = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}")
+SOURCE_ID_RE = re.compile(layout.SOURCE_ID_PATTERN)
 LABEL_COLUMNS = ("item_id", "label")
 FEATURE_LIMIT = 1e300
 ITEM_WEIGHT_MIN, ITEM_WEIGHT_MAX = 1e-150, 1e150
@@ -49,7 +49,7 @@ CONTROL_CHARACTERS = r"[\x00-\x1f\x7f]"
 
 
 def batch_folder(inbox: str | Path, batch_date: str) -> Path:
-    return Path(inbox) / f"batch_date={batch_date}"
+    return layout.batch_dir(Path(inbox), batch_date)
 
 
 def _is_string(kind: pa.DataType) -> bool:
@@ -220,7 +220,7 @@ def validate_source(
             contents.append((name, data))
             check.inputs.append(InputFile(name, sha256(data), None, source_id, False))
     if not SOURCE_ID_RE.fullmatch(source_id):
-        check.errors.append(ErrorRecord(folder_name, None, "source_id", "bad_source_id", "source id must match [A-Za-z0-9][A-Za-z0-9_.-]{0,63}"))
+        check.errors.append(ErrorRecord(folder_name, None, "source_id", "bad_source_id", f"source id must match {layout.SOURCE_ID_PATTERN}"))
         return check
     if source_id not in registry:
         check.errors.append(ErrorRecord(folder_name, None, "source_id", "unknown_source", f"source {source_id} is not in the registry"))
@@ -252,6 +252,7 @@ def validate_source(
         labels = pd.concat(frames, ignore_index=True)
         labels.insert(1, "source_id", source_id)
         check.table = labels
+        check.item_codes = np.concatenate(positions) if item_ids is not None else None
         check.inputs = [replace(f, valid=True) for f in check.inputs]
         check.contents.clear()
     return check

@@ -91,14 +91,13 @@ def finish_demo(out: Path, inbox: Path | None = None) -> None:
     from truthsieve.pipeline import demo, verdicts
 
     if inbox is not None:
-        from truthsieve.pipeline.cli import summary, write_index
-        from truthsieve.pipeline.screen import screen
+        from truthsieve.pipeline.cli import screen, summary, write_index
 
         late = demo.deliver_late(inbox)
         date = demo.night_dates()[demo.ABSENT_NIGHT - 1]
         if late is not None:
             print(f"\n{demo.ABSENT} delivers its file for {date} late: {late}")
-            result = screen(inbox, date, demo.demo_config(), out)
+            result = screen(inbox, date, demo.demo_config(), out, 600.0)
             print(summary(result.decision, result.output))
     print(f"\nverdicts of {demo.REVIEWER}:")
     for line in demo.record_demo_verdicts(out, _now()):
@@ -119,6 +118,7 @@ def verify_out_folder(out: Path) -> list[dict]:
 
     from truthsieve.exceptions import LedgerBrokenError
     from truthsieve.pipeline import ledger
+    from truthsieve.pipeline.layout import batch_name
     from truthsieve.pipeline.outputs import batch_location, published_dates
 
     if not Path(out).is_dir():
@@ -132,10 +132,10 @@ def verify_out_folder(out: Path) -> list[dict]:
     for date in dates:
         sha = hashlib.sha256((batch_location(out, date) / "decision.json").read_bytes()).hexdigest()
         if date not in latest:
-            raise LedgerBrokenError(f"night {date}: batch_date={date}/decision.json is published but the ledger has no night_published for it")
+            raise LedgerBrokenError(f"night {date}: {batch_name(date)}/decision.json is published but the ledger has no night_published for it")
         if sha != latest[date]:
             raise LedgerBrokenError(
-                f"night {date}: batch_date={date}/decision.json has sha256 {sha[:12]}..., not the {latest[date][:12]}... "
+                f"night {date}: {batch_name(date)}/decision.json has sha256 {sha[:12]}..., not the {latest[date][:12]}... "
                 "the ledger's latest night_published records (edited after publishing)"
             )
     return entries
