@@ -14,6 +14,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import dataclass
+from functools import cached_property
 from pathlib import Path
 
 import numpy as np
@@ -28,6 +29,7 @@ from truthsieve.exceptions import InputError
 from truthsieve.pipeline import ingest, work_files
 from truthsieve.pipeline.analysis import prepare
 from truthsieve.pipeline.config import Config
+from truthsieve.pipeline.decision import Decision, decision_json
 from truthsieve.pipeline.layout import ITEMS_FILE, batch_dir
 from truthsieve.pipeline.records import FileCheck, Intake
 
@@ -143,17 +145,27 @@ def analyse_source(store, batch_date: str, config: Config, source_id: str, fit: 
 
 @dataclass(frozen=True)
 class Published:
-    batch_date: str
-    decision: dict
+    """A published night: its typed decision and where its outputs are."""
+
+    typed: Decision
     output: object
 
     @property
+    def batch_date(self) -> str:
+        return self.typed.batch_date
+
+    @property
     def route(self) -> str:
-        return self.decision["route"]
+        return self.typed.route
+
+    @cached_property
+    def decision(self) -> dict:
+        """The decision in its ``decision.json`` form."""
+        return decision_json(self.typed)
 
     def summary(self) -> dict:
-        flagged = [s["source_id"] for s in self.decision["sources"] if s["flags"]]
-        return {"route": self.route, "flagged": flagged, "output": str(self.output)}
+        """What XCom carries: route, flagged sources, where."""
+        return {"route": self.route, "flagged": self.typed.flagged, "output": str(self.output)}
 
 
 def publish_night(
@@ -171,23 +183,23 @@ def publish_night(
     :param intake, incentives: read from the work area when None.
     :param index: rewrite ``index.html`` (a backfill writes it once at the end).
     """
-    from truthsieve.pipeline.screen import decide
+    from truthsieve.pipeline.screen import decide_night
 
     intake = intake or work_files.read_intake(store, batch_date)
     if incentives is None and intake.items.valid and intake.valid_sources:
         incentives = work_files.read_incentives(store, batch_date, sorted(s.source_id for s in intake.valid_sources))
     with store.night(batch_date):
-        decision, files, _ = decide(
+        decided = decide_night(
             intake, config, store.history(batch_date, config.routing.drift_window), incentives,
             in_force_before=store.in_force_before(batch_date), previous=store.published_decision(batch_date),
             recent=store.recent(batch_date), draw_key=draw_key,
         )
-        files.update(work_files.quarantine_copies(store, intake))
+        files = {**decided.files, **work_files.quarantine_copies(store, intake)}
         output = store.publish(batch_date, files)
         store.record_publication(batch_date, files["decision.json"])
     if index:
         store.write_index()
-    return Published(batch_date, decision, output)
+    return Published(decided.decision, output)
 
 
 def screen_night(store, batch_date: str, config: Config, draw_key: tuple[str, bool] = DEMO_KEY, index: bool = True) -> Published:

@@ -7,14 +7,15 @@ command line and every Airflow operator call those steps, which call :func:`deci
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 from pathlib import Path
 
-from truthsieve.core.draw import key_fingerprint
+from truthsieve.core.draw import draw, key_fingerprint
 from truthsieve.core.incentives import SourceIncentive
 from truthsieve.pipeline.alerts import compose_alerts
 from truthsieve.pipeline.analysis import BatchAnalysis, analyse_batch
 from truthsieve.pipeline.config import Config
-from truthsieve.pipeline.decision import aggregate_table, build_decision, sources_table
+from truthsieve.pipeline.decision import Decision, aggregate_table, build_decision, decision_json, sources_table
 from truthsieve.pipeline.night import DEMO_KEY, Published, draw_key_from_environment, item_index, screen_night
 from truthsieve.pipeline.night import validate_items_at as validate_items
 from truthsieve.pipeline.night import validate_source_at
@@ -41,7 +42,16 @@ def ingest_batch(inbox: str | Path, batch_date: str, config: Config) -> Intake:
     return Intake(batch_date, items, [validate_source_at(inbox, batch_date, f, config, index) for f in folders])
 
 
-def decide(
+@dataclass(frozen=True)
+class Decided:
+    """The decide step's result: the typed decision, the night's output files, the analysis."""
+
+    decision: Decision
+    files: dict[str, bytes]
+    analysis: BatchAnalysis | None
+
+
+def decide_night(
     intake: Intake,
     config: Config,
     history: Mapping,
@@ -51,8 +61,8 @@ def decide(
     recent: Sequence[Mapping] | None = None,
     *,
     draw_key: tuple[str, bool] = DEMO_KEY,
-) -> tuple[dict, dict[str, bytes], BatchAnalysis | None]:
-    """Analyse, route and render one batch: returns (decision, output files, analysis).
+) -> Decided:
+    """Analyse, route, draw and render one night (pure: no store, no environment).
 
     :param in_force_before: the rule in force before this night (see
         :func:`truthsieve.pipeline.verdicts.in_force_before`); only the report reads it.
@@ -68,29 +78,31 @@ def decide(
     route, reasons = route_batch(
         analysis, [s.source_id for s in intake.quarantined], len(intake.valid_sources), config, demo_key, intake.items.valid, revision
     )
-    decision = build_decision(intake, config, analysis, route, reasons, key, demo_key, revision, earlier)
+    drawn = None if analysis is None else draw([e.probability for e in analysis.mechanism.lottery], key, intake.batch_date, revision)
+    decision = build_decision(intake, config, analysis, route, reasons, drawn, demo_key, revision, earlier)
+    as_json = decision_json(decision)
 
-    files: dict[str, bytes] = {"decision.json": dumps_decision(decision)}
+    files: dict[str, bytes] = {"decision.json": dumps_decision(as_json)}
     if analysis is not None:
         files["sources.parquet"] = parquet_bytes(sources_table(analysis, decision))
         if route == AGGREGATE:
-            drawn = analysis.mechanism.lottery[decision["draw"]["index"]]
-            files["aggregate.parquet"] = parquet_bytes(aggregate_table(analysis, drawn.rule))
+            files["aggregate.parquet"] = parquet_bytes(aggregate_table(analysis, analysis.mechanism.lottery[drawn.index].rule))
     if route == REVIEW:
-        review = {
-            "batch_date": intake.batch_date,
-            "status": "awaiting_review",
-            "blocking_reasons": [r for r in decision["reasons"] if r["blocking"]],
-            "note": REVIEW_NOTE,
-            "verdict": None,
-        }
+        blocking = [r.as_dict() for r in decision.reasons if r.blocking]
+        review = {"batch_date": intake.batch_date, "status": "awaiting_review", "blocking_reasons": blocking, "note": REVIEW_NOTE, "verdict": None}
         files["review.json"] = dumps_decision(review)
-    alerts = compose_alerts(decision, config, history)
+    alerts = compose_alerts(as_json, config, history)
     files["alerts.json"] = dumps_decision({"batch_date": intake.batch_date, "messages": alerts})
     if intake.errors:
-        files["quarantine/errors.json"] = dumps_decision({"batch_date": intake.batch_date, "errors": decision["errors"]})
-    files["report.html"] = render_report(decision, analysis, in_force_before, recent, config.routing).encode()
-    return decision, files, analysis
+        files["quarantine/errors.json"] = dumps_decision({"batch_date": intake.batch_date, "errors": as_json["errors"]})
+    files["report.html"] = render_report(as_json, analysis, in_force_before, recent, config.routing).encode()
+    return Decided(decision, files, analysis)
+
+
+def decide(intake: Intake, config: Config, history: Mapping, *args, **kwargs) -> tuple[dict, dict[str, bytes], BatchAnalysis | None]:
+    """:func:`decide_night` with the decision as its JSON form: (decision, files, analysis)."""
+    decided = decide_night(intake, config, history, *args, **kwargs)
+    return decision_json(decided.decision), decided.files, decided.analysis
 
 
 def screen(
