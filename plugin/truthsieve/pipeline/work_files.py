@@ -21,7 +21,6 @@ from dataclasses import asdict
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
