@@ -128,3 +128,27 @@ def test_draw_key_from_environment_reads_only_the_mapping_it_is_given():
     assert night.draw_key_from_environment({"TRUTHSIEVE_DRAW_KEY": "s3cret"}) == ("s3cret", False)
     assert night.draw_key_from_environment({}) == night.DEMO_KEY
     assert night.draw_key_from_environment({"TRUTHSIEVE_DRAW_KEY": ""}) == night.DEMO_KEY
+
+
+def test_send_alerts_delivers_each_message_once_across_a_failed_attempt(tmp_path):
+    inbox, config = tmp_path / "inbox", load_config(write_config(tmp_path / "c.yaml"))
+    write_batch(inbox, DATE, seed=9, bend={"south": 16.0})  # one bent source: two messages (owner, platform)
+    store = LocalStore(inbox, tmp_path / "out")
+    night.screen_night(store, DATE, config)
+    messages = night.alerts_of(store, DATE)
+    assert len(messages) == 2
+    delivered, attempts = [], []
+
+    def flaky(message):
+        attempts.append(message["subject"])
+        if len(attempts) == 2:
+            raise ConnectionError("server went away")
+        delivered.append(message["subject"])
+
+    with pytest.raises(ConnectionError):
+        night.send_alerts(store, DATE, flaky)
+    assert night.send_alerts(store, DATE, flaky) == {"sent": 1, "already_sent": 1}
+    assert night.send_alerts(store, DATE, flaky) == {"sent": 0, "already_sent": 2}
+    assert sorted(delivered) == sorted(m["subject"] for m in messages)
+    record = json.loads((tmp_path / "out" / f"batch_date={DATE}" / "alerts_sent.json").read_text())
+    assert len(record["sent"]) == 2

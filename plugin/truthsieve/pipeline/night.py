@@ -2,7 +2,8 @@
 
 ``start_night`` → ``check_items`` → ``validate_source`` (per source folder) →
 ``fit_consensus`` → ``analyse_source`` (per valid source) → ``publish_night`` (decide,
-publish, record, index). :func:`screen_night` runs them in order in one process (the
+publish, record, index) → ``send_alerts`` (Airflow only: the command line leaves the
+messages in ``alerts.json``). :func:`screen_night` runs them in order in one process (the
 command line); each Airflow operator runs exactly one of them. A step reads what the
 steps before it wrote to the store's work area (:mod:`truthsieve.pipeline.work_files`),
 or takes it as an argument when the caller already holds it, so one process never
@@ -12,7 +13,9 @@ copies are those bytes. Nothing here reads the environment: the draw key is pass
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+import hashlib
+import json
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from functools import cached_property
 from pathlib import Path
@@ -200,6 +203,33 @@ def publish_night(
     if index:
         store.write_index()
     return Published(decided.decision, output)
+
+
+def alerts_of(store, batch_date: str) -> list[dict]:
+    """The published night's alert messages (``alerts.json``)."""
+    from truthsieve.pipeline.outputs import batch_location
+
+    return json.loads((batch_location(store.out, batch_date) / "alerts.json").read_text())["messages"]
+
+
+def send_alerts(store, batch_date: str, send: Callable[[dict], None]) -> dict:
+    """Deliver each alert message once through ``send``, recording its sha256 in
+    ``alerts_sent.json`` after each delivery (a retry skips what is recorded)."""
+    from truthsieve.pipeline.outputs import batch_location, dumps_decision
+
+    record = batch_location(store.out, batch_date) / "alerts_sent.json"
+    sent = json.loads(record.read_text())["sent"] if record.is_file() else []
+    done, messages, fresh = {entry["sha256"] for entry in sent}, alerts_of(store, batch_date), 0
+    for message in messages:
+        digest = hashlib.sha256(dumps_decision(message)).hexdigest()
+        if digest in done:
+            continue
+        send(message)
+        sent.append({**message, "sha256": digest})
+        done.add(digest)
+        fresh += 1
+        store.record_alerts_sent(batch_date, dumps_decision({"batch_date": batch_date, "sent": sent}))
+    return {"sent": fresh, "already_sent": len(messages) - fresh}
 
 
 def screen_night(store, batch_date: str, config: Config, draw_key: tuple[str, bool] = DEMO_KEY, index: bool = True) -> Published:

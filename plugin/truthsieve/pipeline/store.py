@@ -120,6 +120,13 @@ class BatchStore:
     def write_index(self):
         return write_index(self.out)
 
+    def record_alerts_sent(self, batch_date: str, data: bytes) -> None:
+        """Write ``alerts_sent.json`` of a published night (carried across republishes)."""
+        self.write(batch_location(self.out, batch_date) / "alerts_sent.json", data)
+        mirror = batch_dir(self.out, batch_date) / "alerts_sent.json"
+        if mirror != batch_location(self.out, batch_date) / "alerts_sent.json":
+            self.write(mirror, data)  # an object store's contract-path mirror
+
 
 class LocalStore(BatchStore):
     """A local output root: per-date lock, revision folder + symlink publish, the ledger.
@@ -168,6 +175,12 @@ class LocalStore(BatchStore):
         from truthsieve.pipeline.outputs import publish
 
         return publish(self.out, batch_date, files)
+
+    def record_alerts_sent(self, batch_date: str, data: bytes) -> None:
+        from truthsieve.pipeline.outputs import date_lock, write_atomic
+
+        with date_lock(self.out, batch_date, self.lock_timeout):
+            write_atomic(batch_dir(self.out, batch_date) / "alerts_sent.json", data)
 
     def in_force_before(self, batch_date: str) -> dict | None:
         from truthsieve.pipeline.verdicts import in_force_before
