@@ -152,3 +152,15 @@ def test_send_alerts_delivers_each_message_once_across_a_failed_attempt(tmp_path
     assert sorted(delivered) == sorted(m["subject"] for m in messages)
     record = json.loads((tmp_path / "out" / f"batch_date={DATE}" / "alerts_sent.json").read_text())
     assert len(record["sent"]) == 2
+
+
+def test_an_unreadable_items_table_is_quarantined_from_its_bytes_and_the_night_goes_to_review(tmp_path):
+    inbox, config = tmp_path / "inbox", load_config(write_config(tmp_path / "c.yaml"))
+    write_batch(inbox, DATE, seed=6)
+    items = inbox / f"batch_date={DATE}" / "items.parquet"
+    items.write_bytes(b"PAR1 but not really")
+    published = night.screen_night(LocalStore(inbox, tmp_path / "out"), DATE, config)
+    assert published.route == "review" and published.decision["consensus"] is None
+    assert {"source_id": None, "files": [f"batch_date={DATE}/items.parquet"]} in published.decision["quarantined"]
+    copy = tmp_path / "out" / f"batch_date={DATE}" / "quarantine" / "items.parquet"
+    assert copy.read_bytes() == b"PAR1 but not really"

@@ -109,6 +109,7 @@ def test_object_store_reads_the_inbox_and_publishes_the_same_night_as_the_local_
     out = ObjectStoragePath(f"{memory}/out")
     current = batch_location(out, DATE)
     assert ".revisions" in str(current)  # readers follow the pointer to a revision prefix
+    assert str(remote.output) == str(out / f"batch_date={DATE}")
     assert (current / "decision.json").read_bytes() == (tmp_path / "out" / f"batch_date={DATE}" / "decision.json").read_bytes()
     assert remote.decision == local.decision and remote.typed == local.typed
     assert store.published_decision(DATE)["batch_date"] == DATE
