@@ -108,13 +108,13 @@ def write_index(out) -> Path:
 
 
 def screen(inbox: Path, date: str, config, out: Path, lock_timeout: float):
-    """Screen one local night through :func:`~truthsieve.pipeline.night.screen_night`, with
-    the draw key from the environment (read here, at the edge) and a private work area."""
-    from truthsieve.pipeline.night import draw_key_from_environment, screen_night
-    from truthsieve.pipeline.store import LocalStore, private_run
+    """Screen one local night (:func:`truthsieve.pipeline.screen.screen`, which runs
+    :func:`~truthsieve.pipeline.night.screen_night`) with the draw key from the environment,
+    read here at the edge."""
+    from truthsieve.pipeline import screen as screening
+    from truthsieve.pipeline.night import draw_key_from_environment
 
-    store = LocalStore(inbox, out, run=private_run(), lock_timeout=lock_timeout)
-    return screen_night(store, date, config, draw_key_from_environment(os.environ), index=False)
+    return screening.screen(inbox, date, config, out, lock_timeout, draw_key=draw_key_from_environment(os.environ))
 
 
 def _check_features(inbox: Path, dates: Sequence[str], config) -> None:

@@ -122,7 +122,7 @@ class Fit:
 
     def summary(self) -> dict:
         rule = self.rule_class.describe(self.consensus.rule)
-        return {"rule": rule, "risk": self.consensus.risk, "sources": list(self.matrix.source_ids)}
+        return {"rule": rule, "risk": self.consensus.risk, "sources": len(self.matrix.source_ids)}  # XCom: small
 
 
 def fit_consensus(store, batch_date: str, config: Config, intake: Intake | None = None) -> Fit | None:
