@@ -91,13 +91,14 @@ def finish_demo(out: Path, inbox: Path | None = None) -> None:
     from truthsieve.pipeline import demo, verdicts
 
     if inbox is not None:
-        from truthsieve.pipeline.cli import screen, summary, write_index
+        from truthsieve.pipeline.cli import summary, write_index
+        from truthsieve.pipeline.screen import screen
 
         late = demo.deliver_late(inbox)
         date = demo.night_dates()[demo.ABSENT_NIGHT - 1]
         if late is not None:
             print(f"\n{demo.ABSENT} delivers its file for {date} late: {late}")
-            result = screen(inbox, date, demo.demo_config(), out, 600.0)
+            result = screen(inbox, date, demo.demo_config(), out)
             print(summary(result.decision, result.output))
     print(f"\nverdicts of {demo.REVIEWER}:")
     for line in demo.record_demo_verdicts(out, _now()):
