@@ -247,5 +247,9 @@ def test_every_operator_is_a_thin_shell_over_one_step():
         assert len(body.strip().splitlines()) <= 15, cls.__name__
         assert body.count("night.") - body.count("night.draw_key_from_environment") == 1, cls.__name__  # one step
     assert len(inspect.getsource(operators._BatchOperator.execute).strip().splitlines()) <= 15
+    from truthsieve.airflow.alerting import SendAlertsOperator
+
+    body = inspect.getsource(SendAlertsOperator.run)
+    assert len(body.strip().splitlines()) <= 15 and "night.send_alerts(" in body
     shell = Path(operators.__file__).parent
     assert not [p.name for p in shell.glob("*.py") if "pipeline.cli" in p.read_text()]  # no import of the CLI

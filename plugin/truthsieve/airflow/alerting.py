@@ -29,8 +29,6 @@ class SendAlertsOperator(_BatchOperator):
         self.send_mail = send_mail
 
     def run(self, context):
-        import html
-
         from truthsieve.pipeline import night
 
         config, store = self.load_config(), self.store()
@@ -40,11 +38,16 @@ class SendAlertsOperator(_BatchOperator):
         if str(self.send_mail).strip().lower() in ("false", "0", "no", "off"):
             raise AirflowSkipException(f"send_mail is off: {len(messages)} message(s) left unsent in alerts.json")
         hook = _smtp_hook(config.alerts.smtp_conn_id)
-        with hook:  # the composer escapes every value in "html"; older alerts.json had text only
-            return night.send_alerts(store, self.batch_date, lambda m: hook.send_email_smtp(
-                to=m["to"], subject=m["subject"], html_content=m.get("html") or f"<pre>{html.escape(m['body'])}</pre>",
-                from_email=config.alerts.from_address,
-            ))
+        with hook:
+            return night.send_alerts(store, self.batch_date, lambda message: _send(hook, message, config.alerts.from_address))
+
+
+def _send(hook, message: dict, from_address: str) -> None:
+    import html
+
+    # the composer escapes every value in "html"; older alerts.json had text only
+    content = message.get("html") or f"<pre>{html.escape(message['body'])}</pre>"
+    hook.send_email_smtp(to=message["to"], subject=message["subject"], html_content=content, from_email=from_address)
 
 
 def _smtp_hook(conn_id: str):
