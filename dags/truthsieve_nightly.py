@@ -72,17 +72,11 @@ with DAG(
 
     @task
     def list_source_folders(inbox: str, out: str, ds=None) -> list[str]:
-        """The source folders of the night; clears this night's work folder."""
-        from airflow.sdk.exceptions import AirflowFailException
+        """The source folders of the night (step start_night, which clears its work area)."""
+        from truthsieve.airflow.operators import classify
+        from truthsieve.pipeline import night
 
-        from truthsieve.airflow import storage
-
-        if not storage.batch_exists(inbox, ds):
-            raise AirflowFailException(f"no batch folder for {ds} under {inbox}")
-        work = storage.work_location(out, ds)
-        if work.exists():
-            work.rmdir(recursive=True)
-        return storage.source_folders(inbox, ds)
+        return classify(lambda: night.start_night(storage.store_for(inbox, out), ds))
 
     @task
     def valid_source_ids(summaries: list[dict]) -> list[str]:

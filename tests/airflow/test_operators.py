@@ -157,3 +157,99 @@ def test_a_retry_after_a_refused_message_sends_each_message_exactly_once(monkeyp
     assert recipients == ["platform@example.org", "south@example.org"]
     record = json.loads((Path(review_night["out"]) / f"batch_date={DATE}" / "alerts_sent.json").read_text())
     assert sorted(to for m in record["sent"] for to in m["to"]) == ["platform@example.org", "south@example.org"]
+
+
+def run_night_by_operators(paths: dict) -> dict:
+    """Every task of the DAG as its operator, called through execute() with a small context,
+    in the DAG's order; returns each task's XCom value."""
+    from truthsieve.airflow import (
+        CheckItemsOperator,
+        DecideAndPublishOperator,
+        FitConsensusOperator,
+        SourceIncentiveOperator,
+        ValidateSourceOperator,
+    )
+    from truthsieve.airflow import storage
+    from truthsieve.pipeline import night
+
+    context = {"ds": paths["batch_date"]}
+    folders = night.start_night(storage.store_for(paths["inbox"], paths["out"]), paths["batch_date"])
+    xcom = {"check_items": CheckItemsOperator(task_id="check_items", **paths).execute(context)}
+    xcom["validate_source"] = [ValidateSourceOperator(task_id="v", source_folder=f, **paths).execute(context) for f in folders]
+    xcom["fit_consensus"] = FitConsensusOperator(task_id="fit", **paths).execute(context)
+    valid = sorted(s["source_id"] for s in xcom["validate_source"] if s["valid"])
+    xcom["source_incentive"] = [SourceIncentiveOperator(task_id="i", source_id=s, **paths).execute(context) for s in valid]
+    xcom["decide_and_publish"] = DecideAndPublishOperator(task_id="d", **paths).execute(context)
+    return xcom
+
+
+def test_the_operators_one_step_each_publish_the_clis_night_and_xcom_stays_small(tmp_path, review_night, monkeypatch):
+    monkeypatch.setenv("TRUTHSIEVE_DRAW_KEY", "operator-secret")  # read by the operator, at the edge
+    cli_out = tmp_path / "cli-out"
+    import os
+
+    result = cli("screen", "--inbox", review_night["inbox"], "--date", DATE, "--config", review_night["config_path"], "--out", str(cli_out), env=os.environ.copy())
+    assert result.returncode == 0, result.stderr
+    paths = {**review_night, "out": str(tmp_path / "dag-out")}
+    xcom = run_night_by_operators(paths)
+    ours = (tmp_path / "dag-out" / f"batch_date={DATE}" / "decision.json").read_bytes()
+    assert ours == (cli_out / f"batch_date={DATE}" / "decision.json").read_bytes()
+    decision = json.loads(ours)
+    assert decision["draw"]["key_source"] == "environment"
+    assert xcom["check_items"] == {"valid": True, "errors": 0}
+    assert xcom["decide_and_publish"]["route"] == decision["route"]
+    assert xcom["decide_and_publish"]["flagged"] == [s["source_id"] for s in decision["sources"] if s["flags"]]
+    assert xcom["fit_consensus"]["rule"] == decision["consensus"]["rule"]
+    for value in xcom.values():
+        assert len(json.dumps(value)) < 2000  # summaries, never tables
+
+
+def test_a_source_validated_before_the_items_check_fails_at_once_naming_it(tmp_path, review_night):
+    from airflow.sdk.exceptions import AirflowFailException
+
+    from truthsieve.airflow import ValidateSourceOperator
+
+    paths = {**review_night, "out": str(tmp_path / "fresh-out")}
+    with pytest.raises(AirflowFailException, match="check_items"):
+        ValidateSourceOperator(task_id="v", source_folder="source_id=south", **paths).execute({})
+
+
+def test_fit_consensus_skips_a_night_without_a_valid_source(tmp_path):
+    from airflow.sdk.exceptions import AirflowSkipException
+
+    from truthsieve.airflow import FitConsensusOperator
+
+    inbox, config = tmp_path / "inbox", write_config(tmp_path / "c.yaml")
+    write_batch(inbox, DATE, seed=2)
+    for labels in (inbox / f"batch_date={DATE}").glob("source_id=*/labels.parquet"):
+        labels.write_bytes(b"not parquet")
+    paths = {"inbox": str(inbox), "batch_date": DATE, "config_path": str(config), "out": str(tmp_path / "out")}
+    from truthsieve.airflow import CheckItemsOperator, ValidateSourceOperator
+    from truthsieve.pipeline import night
+    from truthsieve.pipeline.store import LocalStore
+
+    folders = night.start_night(LocalStore(inbox, tmp_path / "out"), DATE)
+    CheckItemsOperator(task_id="c", **paths).execute({})
+    assert not any(ValidateSourceOperator(task_id="v", source_folder=f, **paths).execute({})["valid"] for f in folders)
+    with pytest.raises(AirflowSkipException, match="nothing to fit"):
+        FitConsensusOperator(task_id="fit", **paths).execute({})
+
+
+def test_every_operator_is_a_thin_shell_over_one_step():
+    import inspect
+
+    from truthsieve.airflow import operators
+
+    classes = [operators.CheckItemsOperator, operators.ValidateSourceOperator, operators.FitConsensusOperator,
+               operators.SourceIncentiveOperator, operators.DecideAndPublishOperator]
+    for cls in classes:
+        body = inspect.getsource(cls.run)
+        assert len(body.strip().splitlines()) <= 15, cls.__name__
+        assert body.count("night.") - body.count("night.draw_key_from_environment") == 1, cls.__name__  # one step
+    assert len(inspect.getsource(operators._BatchOperator.execute).strip().splitlines()) <= 15
+    from truthsieve.airflow.alerting import SendAlertsOperator
+
+    body = inspect.getsource(SendAlertsOperator.run)
+    assert len(body.strip().splitlines()) <= 15 and "night.send_alerts(" in body
+    shell = Path(operators.__file__).parent
+    assert not [p.name for p in shell.glob("*.py") if "pipeline.cli" in p.read_text()]  # no import of the CLI

@@ -2,12 +2,10 @@
 
 from __future__ import annotations
 
-import json
 from collections.abc import Sequence
 
 from airflow.sdk.exceptions import AirflowFailException, AirflowSkipException
 
-from truthsieve.airflow import storage
 from truthsieve.airflow.operators import _BatchOperator
 
 
@@ -31,54 +29,25 @@ class SendAlertsOperator(_BatchOperator):
         self.send_mail = send_mail
 
     def run(self, context):
-        import hashlib
-        import html
+        from truthsieve.pipeline import night
 
-        from truthsieve.pipeline.outputs import batch_location, dumps_decision
-
-        config = self.load_config()
-        folder = batch_location(storage.location(self.out), self.batch_date)
-        messages = json.loads((folder / "alerts.json").read_text())["messages"]
+        config, store = self.load_config(), self.store()
+        messages = night.alerts_of(store, self.batch_date)
         if not messages:
             raise AirflowSkipException("nothing to alert")
         if str(self.send_mail).strip().lower() in ("false", "0", "no", "off"):
             raise AirflowSkipException(f"send_mail is off: {len(messages)} message(s) left unsent in alerts.json")
         hook = _smtp_hook(config.alerts.smtp_conn_id)
-        record_path = folder / "alerts_sent.json"
-        sent = json.loads(record_path.read_text())["sent"] if record_path.is_file() else []
-        done = {entry["sha256"] for entry in sent}
-        fresh = 0
         with hook:
-            for message in messages:
-                digest = hashlib.sha256(dumps_decision(message)).hexdigest()
-                if digest in done:
-                    continue
-                hook.send_email_smtp(
-                    to=message["to"],
-                    subject=message["subject"],
-                    # the composer escapes every value in "html"; older alerts.json had text only
-                    html_content=message.get("html") or f"<pre>{html.escape(message['body'])}</pre>",
-                    from_email=config.alerts.from_address,
-                )
-                sent.append({**message, "sha256": digest})
-                done.add(digest)
-                fresh += 1
-                self._record(dumps_decision({"batch_date": self.batch_date, "sent": sent}))
-        return {"sent": fresh, "already_sent": len(messages) - fresh}
+            return night.send_alerts(store, self.batch_date, lambda message: _send(hook, message, config.alerts.from_address))
 
-    def _record(self, data: bytes) -> None:
-        from truthsieve.pipeline.outputs import date_lock, write_atomic
 
-        if storage.is_local(self.out):
-            out = storage.local_path(self.out)
-            with date_lock(out, self.batch_date):
-                write_atomic(out / f"batch_date={self.batch_date}" / "alerts_sent.json", data)
-        else:
-            from truthsieve.pipeline.outputs import batch_location
+def _send(hook, message: dict, from_address: str) -> None:
+    import html
 
-            root = storage.location(self.out)
-            storage.write_object(batch_location(root, self.batch_date) / "alerts_sent.json", data)
-            storage.write_object(root / f"batch_date={self.batch_date}" / "alerts_sent.json", data)
+    # the composer escapes every value in "html"; older alerts.json had text only
+    content = message.get("html") or f"<pre>{html.escape(message['body'])}</pre>"
+    hook.send_email_smtp(to=message["to"], subject=message["subject"], html_content=content, from_email=from_address)
 
 
 def _smtp_hook(conn_id: str):

@@ -27,8 +27,14 @@ APPROVE, REJECT = "Approve", "Reject"
 OPTIONS = [APPROVE, REJECT]
 
 
+def _night(out: str, batch_date: str):
+    from truthsieve.pipeline.layout import batch_dir
+
+    return batch_dir(storage.location(out), batch_date)
+
+
 def _decision(out: str, batch_date: str) -> dict:
-    return json.loads((storage.location(out) / f"batch_date={batch_date}" / "decision.json").read_text())
+    return json.loads((_night(out, batch_date) / "decision.json").read_text())
 
 
 def review_request(out: str, batch_date: str) -> dict:
@@ -40,7 +46,7 @@ def review_request(out: str, batch_date: str) -> dict:
     reasons = "\n".join(
         f"- {'**blocking** ' if r.get('blocking') else ''}`{r['code']}`: {r['message']}" for r in decision.get("reasons", [])
     )
-    night = storage.location(out) / f"batch_date={batch_date}"
+    night = _night(out, batch_date)
     rule = rule_text(draw.get("rule")) if draw.get("rule") else "none (no valid items table or source): only Reject applies"
     body = (
         f"Night **{batch_date}** was routed to review.\n\n"

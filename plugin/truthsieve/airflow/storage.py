@@ -17,12 +17,10 @@ for ``decision.json`` sees a whole mirror or none.
 
 from __future__ import annotations
 
-import contextlib
+import functools
 import json
-import shutil
-import tempfile
 import uuid
-from collections.abc import Iterator, Mapping
+from collections.abc import Mapping
 from pathlib import Path
 
 from airflow.sdk import ObjectStoragePath
@@ -62,11 +60,6 @@ def local_path(uri: str) -> Path:
     return Path(text)
 
 
-def work_location(out: str, batch_date: str) -> ObjectStoragePath:
-    """Intermediate files of one night, shared by every task (and every worker)."""
-    return location(out) / ".work" / f"batch_date={batch_date}"
-
-
 def write_object(target: ObjectStoragePath, data: bytes) -> None:
     """Write one file or object whole: locally through a temporary name and a rename,
     on object stores as one PUT (which is atomic there)."""
@@ -81,35 +74,40 @@ def write_object(target: ObjectStoragePath, data: bytes) -> None:
     target.write_bytes(data)
 
 
-@contextlib.contextmanager
-def local_inbox(inbox: str, batch_date: str, folders: tuple[str, ...] = ()) -> Iterator[Path]:
-    """A local inbox root holding the night's items table and the named source folders
-    (all of them when none are named). Local inboxes are used in place, never copied."""
-    if is_local(inbox):
-        yield local_path(inbox)
-        return
-    batch = location(inbox) / f"batch_date={batch_date}"
-    with tempfile.TemporaryDirectory(prefix="truthsieve-inbox-") as scratch:
-        root = Path(scratch)
-        for remote in batch.rglob("*"):
-            relative = remote.relative_to(batch)
-            parts = Path(str(relative)).parts
-            if not remote.is_file() or (folders and parts[0] != "items.parquet" and parts[0] not in folders):
-                continue
-            target = root / f"batch_date={batch_date}" / Path(str(relative))
-            target.parent.mkdir(parents=True, exist_ok=True)
-            with remote.open("rb") as source, open(target, "wb") as sink:
-                shutil.copyfileobj(source, sink)
-        yield root
+def store_for(inbox: str, out: str):
+    """The :class:`~truthsieve.pipeline.store.BatchStore` of an inbox and an output location:
+    a :class:`~truthsieve.pipeline.store.LocalStore` for a local output root, else an
+    :class:`ObjectStore`. Relative ``file://``/``local://`` URIs are refused."""
+    from truthsieve.pipeline.store import LocalStore
+
+    source = local_path(inbox) if is_local(inbox) else location(inbox)
+    if is_local(out):
+        return LocalStore(source, local_path(out))
+    return _object_store_class()(source, location(out))
 
 
-def source_folders(inbox: str, batch_date: str) -> list[str]:
-    batch = location(inbox) / f"batch_date={batch_date}"
-    return sorted(p.name for p in batch.iterdir() if p.name.startswith("source_id=") and p.is_dir())
+@functools.cache
+def _object_store_class():
+    from truthsieve.pipeline.store import BatchStore
+
+    class ObjectStore(BatchStore):
+        """Outputs on an object store: revision prefix + pointer (:func:`publish_objects`).
+        Object stores have no cross-process lock: the DAG's one active run is the writer,
+        and no ledger is kept there."""
+
+        def write(self, target, data: bytes) -> None:
+            write_object(target, data)
+
+        def publish(self, batch_date: str, files: Mapping[str, bytes]):
+            return publish_objects(self.out, batch_date, files)
+
+    return ObjectStore
 
 
-def batch_exists(inbox: str, batch_date: str) -> bool:
-    return (location(inbox) / f"batch_date={batch_date}").is_dir()
+def __getattr__(name: str):
+    if name == "ObjectStore":  # built lazily: the pipeline is not imported at DAG-parse time
+        return _object_store_class()
+    raise AttributeError(name)
 
 
 def _files_under(folder: ObjectStoragePath) -> set[str]:
@@ -118,17 +116,18 @@ def _files_under(folder: ObjectStoragePath) -> set[str]:
 
 def publish_objects(out: str, batch_date: str, files: Mapping[str, bytes]) -> ObjectStoragePath:
     """Publish a night's outputs on object storage: revision, pointer, then the mirror."""
-    from truthsieve.pipeline.outputs import CARRIED_FORWARD, POINTER, REVISIONS, batch_location, crash_point
+    from truthsieve.pipeline.layout import POINTER, REVISIONS, batch_dir, batch_name
+    from truthsieve.pipeline.outputs import CARRIED_FORWARD, batch_location, crash_point
 
-    root = location(out)
-    folder = root / f"batch_date={batch_date}"
+    root = location(out) if isinstance(out, str) else out
+    folder = batch_dir(root, batch_date)
     files = dict(files)
     current = batch_location(root, batch_date)
     for name in CARRIED_FORWARD:
         if name not in files and (current / name).is_file():
             files[name] = (current / name).read_bytes()
     token = uuid.uuid4().hex
-    revisions = root / REVISIONS / f"batch_date={batch_date}"
+    revisions = root / REVISIONS / batch_name(batch_date)
     for k, relative in enumerate(sorted(files)):
         write_object(revisions / token / relative, files[relative])
         if k == 0:

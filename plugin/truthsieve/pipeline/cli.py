@@ -101,23 +101,20 @@ def _progress(done: int, total: int, label: str) -> None:
 
 
 def write_index(out) -> Path:
-    """Render ``index.html`` from every night's decision (``out`` may be object storage)."""
-    from truthsieve.pipeline.outputs import as_location, batch_location, published_dates, write_index_page
-    from truthsieve.pipeline.report import render_index
+    """Render ``index.html`` (see :func:`truthsieve.pipeline.store.write_index`)."""
+    from truthsieve.pipeline.store import write_index as write
 
-    out = as_location(out)
-    decisions = [json.loads((batch_location(out, d) / "decision.json").read_text()) for d in published_dates(out)]
-    entries = []
-    if isinstance(out, Path):
-        from truthsieve.pipeline.ledger import read_ledger
+    return write(out)
 
-        entries = read_ledger(out)
-    page = render_index(decisions, entries).encode()
-    if isinstance(out, Path):
-        return write_index_page(out, page)
-    path = out / "index.html"
-    path.write_bytes(page)  # one object PUT is atomic on object stores
-    return path
+
+def screen(inbox: Path, date: str, config, out: Path, lock_timeout: float):
+    """Screen one local night (:func:`truthsieve.pipeline.screen.screen`, which runs
+    :func:`~truthsieve.pipeline.night.screen_night`) with the draw key from the environment,
+    read here at the edge."""
+    from truthsieve.pipeline import screen as screening
+    from truthsieve.pipeline.night import draw_key_from_environment
+
+    return screening.screen(inbox, date, config, out, lock_timeout, draw_key=draw_key_from_environment(os.environ))
 
 
 def _check_features(inbox: Path, dates: Sequence[str], config) -> None:
@@ -127,11 +124,11 @@ def _check_features(inbox: Path, dates: Sequence[str], config) -> None:
 
 def backfill(inbox: Path, dates: Sequence[str], config_path: Path | None, out: Path, lock_timeout: float, config=None) -> int:
     from truthsieve.pipeline.config import load_config
-    from truthsieve.pipeline.screen import draw_key_from_environment, screen
+    from truthsieve.pipeline.layout import batch_dir
 
     config = config or load_config(config_path)
     check_out_location(inbox, out)
-    present = [d for d in dates if (inbox / f"batch_date={d}").is_dir()]
+    present = [d for d in dates if batch_dir(inbox, d).is_dir()]
     if not present:
         print(f"error: no batch folders under {inbox} for {dates[0]} to {dates[-1]}", file=sys.stderr)
         return EXIT_INPUT
@@ -139,7 +136,7 @@ def backfill(inbox: Path, dates: Sequence[str], config_path: Path | None, out: P
     results = []
     for k, date in enumerate(present):
         _progress(k, len(present), date)
-        results.append(screen(inbox, date, config, out, lock_timeout, draw_key=draw_key_from_environment(os.environ)))
+        results.append(screen(inbox, date, config, out, lock_timeout))
     _progress(len(present), len(present), "done")
     index = write_index(out)
     routes = [r.route for r in results]
@@ -157,13 +154,12 @@ def backfill(inbox: Path, dates: Sequence[str], config_path: Path | None, out: P
 def run(argv: Sequence[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     from truthsieve.pipeline.config import load_config
-    from truthsieve.pipeline.screen import draw_key_from_environment, screen
 
     if args.command == "screen":
         config = load_config(args.config)
         check_out_location(args.inbox, args.out)
         _check_features(args.inbox, [args.date], config)
-        result = screen(args.inbox, args.date, config, args.out, args.lock_timeout, draw_key=draw_key_from_environment(os.environ))
+        result = screen(args.inbox, args.date, config, args.out, args.lock_timeout)
         write_index(args.out)
         print(json.dumps(result.decision, sort_keys=True, indent=2) if args.json else summary(result.decision, result.output))
         return EXIT_OK
@@ -180,7 +176,7 @@ def run(argv: Sequence[str] | None = None) -> int:
 
     inbox = args.inbox or args.out.with_name(args.out.name + "-inbox")
     check_out_location(inbox, args.out)
-    if not (inbox / f"batch_date={demo.night_dates()[-1]}").is_dir():
+    if not demo.batch_present(inbox, demo.night_dates()[-1]):
         print(f"generating the demo inbox in {inbox}")
         demo.generate_inbox(inbox)
     dates = demo.night_dates()

@@ -10,12 +10,14 @@ from typing import Literal
 import yaml
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, create_model, field_validator, model_validator
 
+from truthsieve.core.incentives import DEFAULT_THRESHOLD_BUDGET
 from truthsieve.core.mechanisms import MECHANISMS
 from truthsieve.core.flags import FLAG_CODES, THRESHOLDS, FlagThresholds
 from truthsieve.pipeline.classes import ClassAlphabet, check_class_names
 from truthsieve.exceptions import ConfigError
+from truthsieve.pipeline import layout
 
-SOURCE_ID_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$"
+SOURCE_ID_PATTERN = f"^{layout.SOURCE_ID_PATTERN}$"
 RESERVED_COLUMNS = ("item_id", "item_weight")
 
 
@@ -149,7 +151,7 @@ class AnalysisSettings(_Strict):
 
     dawid_skene_tolerance: float = Field(1e-6, gt=0)
     dawid_skene_max_iterations: int = Field(200, ge=1)
-    incentive_budget: int = Field(64, ge=0, description="reachability checks per source (threshold class)")
+    incentive_budget: int = Field(DEFAULT_THRESHOLD_BUDGET, ge=0, description="reachability checks per source (threshold class)")
     sample_epsilon: float = Field(0.05, gt=0, lt=1, description="items_needed: accuracy of every risk estimate")
     sample_delta: float = Field(0.05, gt=0, lt=1, description="items_needed: failure probability")
 

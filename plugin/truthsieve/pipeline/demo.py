@@ -34,6 +34,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from truthsieve.pipeline.config import Config
+from truthsieve.pipeline.layout import batch_dir, source_name
 
 FIRST_NIGHT = dt.date(2026, 11, 2)
 NIGHTS = 14
@@ -145,21 +146,25 @@ def generate_inbox(inbox: str | Path, seed: int = SEED) -> list[str]:
     member's file for its night is not written (see :func:`deliver_late`)."""
     inbox = Path(inbox)
     for night, date, items, tables in _nights(seed):
-        folder = inbox / f"batch_date={date}"
+        folder = batch_dir(inbox, date)
         folder.mkdir(parents=True, exist_ok=True)
         pq.write_table(items, folder / "items.parquet")
         for source, table in tables.items():
             if delivered(source, night):
-                (folder / f"source_id={source}").mkdir(exist_ok=True)
-                pq.write_table(table, folder / f"source_id={source}" / "grades.parquet")
+                (folder / source_name(source)).mkdir(exist_ok=True)
+                pq.write_table(table, folder / source_name(source) / "grades.parquet")
     return night_dates()
+
+
+def batch_present(inbox: str | Path, date: str) -> bool:
+    return batch_dir(Path(inbox), date).is_dir()
 
 
 def deliver_late(inbox: str | Path, seed: int = SEED) -> Path | None:
     """The demo acting as the absent member: its late file for its night, into the inbox.
     Returns the file written, or None if it was delivered already."""
     date = night_dates()[ABSENT_NIGHT - 1]
-    target = Path(inbox) / f"batch_date={date}" / f"source_id={ABSENT}" / LATE_FILE
+    target = batch_dir(Path(inbox), date) / source_name(ABSENT) / LATE_FILE
     if target.exists():
         return None
     table = next(t for night, _, _, t in _nights(seed) if night == ABSENT_NIGHT)[ABSENT]
@@ -191,7 +196,7 @@ def record_demo_verdicts(out: str | Path, at: str) -> list[str]:
         return [f"{n.date}: {n.status} by {REVIEWER}" for n in done]
 
     def blocking(night) -> set[str]:
-        decision = json.loads((Path(out) / f"batch_date={night.date}" / "decision.json").read_text())
+        decision = json.loads((batch_dir(Path(out), night.date) / "decision.json").read_text())
         return {r["code"] for r in decision["reasons"] if r["blocking"]}
 
     awaiting = [n for n in state.values() if n.status == AWAITING]

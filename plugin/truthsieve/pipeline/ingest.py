@@ -31,49 +31,34 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pyarrow as pa
-import pyarrow.compute as pc
 
 from truthsieve.core.labels import id_array
 from truthsieve.core.rules import RULE_COLUMN_PREFIX
 from truthsieve.pipeline import layout
+from truthsieve.pipeline.label_files import duplicate_errors, id_errors, is_string, validate_labels
 from truthsieve.pipeline.layout import ITEMS_FILE, display, inside, relative, sha256
-from truthsieve.pipeline.records import MAX_ROWS_PER_RULE, ErrorRecord, FileCheck, InputFile, parse, quarantine_bytes, row_errors
+from truthsieve.pipeline.records import ErrorRecord, FileCheck, InputFile, parse, quarantine_bytes, row_errors
 
 __all__ = ["ErrorRecord", "FileCheck", "InputFile", "quarantine_bytes", "validate_items", "validate_source", "source_folders", "batch_folder"]
 
-SOURCE_ID_RE = re.compile(r"[A-Za-z0-9][A-Za-z0-9_.-]{0,63}")
-LABEL_COLUMNS = ("item_id", "label")
+SOURCE_ID_RE = re.compile(layout.SOURCE_ID_PATTERN)
 FEATURE_LIMIT = 1e300
 ITEM_WEIGHT_MIN, ITEM_WEIGHT_MAX = 1e-150, 1e150
-CONTROL_CHARACTERS = r"[\x00-\x1f\x7f]"
 
 
 def batch_folder(inbox: str | Path, batch_date: str) -> Path:
-    return Path(inbox) / f"batch_date={batch_date}"
-
-
-def _is_string(kind: pa.DataType) -> bool:
-    return pa.types.is_string(kind) or pa.types.is_large_string(kind)
+    return layout.batch_dir(Path(inbox), batch_date)
 
 
 def _is_number(kind: pa.DataType) -> bool:
     return pa.types.is_integer(kind) or pa.types.is_floating(kind) or pa.types.is_decimal(kind)
 
 
-def _id_errors(relative_path: str, column: pa.ChunkedArray) -> list[ErrorRecord]:
-    """Null ids and ids holding a NUL or other control character (``X`` and ``X\\x00`` look alike)."""
-    control = pc.fill_null(pc.match_substring_regex(column, CONTROL_CHARACTERS), False)
-    return row_errors(relative_path, np.flatnonzero(column.is_null().to_numpy(zero_copy_only=False)), "item_id", "null_item_id", "item_id is null") + row_errors(
-        relative_path, np.flatnonzero(control.to_numpy(zero_copy_only=False)), "item_id", "control_character_in_id",
-        "item_id holds a NUL or other control character",
-    )
-
-
 def _schema_errors(relative_path: str, schema: pa.Schema, features: Iterable[str], listed: bool) -> list[ErrorRecord]:
     errors = []
     if "item_id" not in schema.names:
         errors.append(ErrorRecord(relative_path, None, "item_id", "missing_column", "required column item_id is missing"))
-    elif not _is_string(schema.field("item_id").type):
+    elif not is_string(schema.field("item_id").type):
         errors.append(ErrorRecord(relative_path, None, "item_id", "wrong_type", f"item_id must be string, not {schema.field('item_id').type}"))
     for name in features:
         if name not in schema.names:
@@ -143,7 +128,7 @@ def validate_items(
     if errors:
         return check
 
-    errors += _id_errors(name, table.column("item_id"))
+    errors += id_errors(name, table.column("item_id"))
     frame = table.to_pandas()
     ids = frame["item_id"]
     errors += row_errors(
@@ -220,7 +205,7 @@ def validate_source(
             contents.append((name, data))
             check.inputs.append(InputFile(name, sha256(data), None, source_id, False))
     if not SOURCE_ID_RE.fullmatch(source_id):
-        check.errors.append(ErrorRecord(folder_name, None, "source_id", "bad_source_id", "source id must match [A-Za-z0-9][A-Za-z0-9_.-]{0,63}"))
+        check.errors.append(ErrorRecord(folder_name, None, "source_id", "bad_source_id", f"source id must match {layout.SOURCE_ID_PATTERN}"))
         return check
     if source_id not in registry:
         check.errors.append(ErrorRecord(folder_name, None, "source_id", "unknown_source", f"source {source_id} is not in the registry"))
@@ -237,14 +222,14 @@ def validate_source(
         if error:
             check.errors.append(error)
             continue
-        frame, errors, found = _validate_labels(name, table, item_ids)
+        frame, errors, found = validate_labels(name, table, item_ids)
         check.errors += errors
         if frame is not None:
             frames.append(frame)
             places.append(name)
             positions.append(found)
     if frames:
-        check.errors += _duplicate_errors(frames, places)
+        check.errors += duplicate_errors(frames, places)
     if not check.errors and item_weights is not None:
         if not item_weights[np.concatenate(positions)].sum() > 0:
             check.errors.append(ErrorRecord(folder_name, None, "item_weight", "no_positive_weight", "every item this source labelled has item_weight 0"))
@@ -252,78 +237,7 @@ def validate_source(
         labels = pd.concat(frames, ignore_index=True)
         labels.insert(1, "source_id", source_id)
         check.table = labels
+        check.item_codes = np.concatenate(positions) if item_ids is not None else None
         check.inputs = [replace(f, valid=True) for f in check.inputs]
         check.contents.clear()
     return check
-
-
-def _duplicate_errors(frames: list[pd.DataFrame], places: list[str]) -> list[ErrorRecord]:
-    """``duplicate_label`` for every later occurrence of an item, naming the first one's file and row."""
-    every = pa.chunked_array([id_array(f["item_id"]) for f in frames], pa.string())
-    if pc.count_distinct(every).as_py() == len(every):
-        return []  # the common case, decided in Arrow without a Python string per row
-    ids = np.concatenate([f["item_id"].to_numpy(dtype=object) for f in frames])
-    codes, _ = pd.factorize(ids)
-    _, first_of_code = np.unique(codes, return_index=True)
-    first = first_of_code[codes]
-    repeated = np.flatnonzero(first != np.arange(len(ids)))
-    if not len(repeated):
-        return []
-    starts = np.cumsum([0] + [len(f) for f in frames])
-    file_of = np.searchsorted(starts, np.arange(len(ids)), side="right") - 1
-    errors = []
-    for k in range(len(frames)):
-        rows = repeated[file_of[repeated] == k]
-        for position in rows[:MAX_ROWS_PER_RULE]:
-            earlier = first[position]
-            where = places[file_of[earlier]]
-            errors.append(ErrorRecord(
-                places[k], int(position - starts[k]) + 1, "item_id", "duplicate_label",
-                f"this source already labelled this item in {where} row {int(earlier - starts[file_of[earlier]]) + 1}",
-            ))
-        if len(rows) > MAX_ROWS_PER_RULE:
-            errors.append(ErrorRecord(places[k], None, "item_id", "duplicate_label", f"{len(rows) - MAX_ROWS_PER_RULE} more rows break this rule"))
-    return errors
-
-
-def _validate_labels(
-    relative_path: str, table: pa.Table, item_ids: pa.Array | None
-) -> tuple[pd.DataFrame | None, list[ErrorRecord], np.ndarray | None]:
-    """(labels frame, errors, each row's position in ``item_ids``): one hash join per file."""
-    errors: list[ErrorRecord] = []
-    schema = table.schema
-    for name in LABEL_COLUMNS:
-        if name not in schema.names:
-            errors.append(ErrorRecord(relative_path, None, name, "missing_column", f"required column {name} is missing"))
-    for name in schema.names:
-        if name not in LABEL_COLUMNS:
-            errors.append(ErrorRecord(relative_path, None, name, "extra_column", f"unexpected column {name}; label files hold item_id and label only"))
-    if "item_id" in schema.names and not _is_string(schema.field("item_id").type):
-        errors.append(ErrorRecord(relative_path, None, "item_id", "wrong_type", f"item_id must be string, not {schema.field('item_id').type}"))
-    if "label" in schema.names:
-        kind = schema.field("label").type
-        if not (pa.types.is_boolean(kind) or pa.types.is_integer(kind)):
-            errors.append(ErrorRecord(relative_path, None, "label", "wrong_type", f"label must be bool or integer 0/1, not {kind}"))
-    if errors:
-        return None, errors, None
-
-    errors += _id_errors(relative_path, table.column("item_id"))
-    # Ids stay in Arrow: joined by a hash join, never one Python string per row.
-    ids = id_array(table.column("item_id"))
-    raw = pd.Series(table.column("label").to_numpy(zero_copy_only=False))
-    errors += row_errors(relative_path, np.flatnonzero(raw.isna().to_numpy()), "label", "null_label", "label is null")
-    numeric = raw.astype("float64")
-    errors += row_errors(
-        relative_path, np.flatnonzero(raw.notna().to_numpy() & ~numeric.isin([0.0, 1.0]).to_numpy()),
-        "label", "label_out_of_range", "label must be 0 or 1",
-    )
-    found = None
-    if item_ids is not None:
-        joined = pc.index_in(ids, value_set=item_ids)
-        unknown = pc.and_(ids.is_valid(), joined.is_null()).to_numpy(zero_copy_only=False)
-        errors += row_errors(relative_path, np.flatnonzero(unknown), "item_id", "unknown_item", "item_id is not in the items table")
-    if errors:
-        return None, errors, None
-    if item_ids is not None:
-        found = joined.to_numpy(zero_copy_only=False)
-    return pa.table({"item_id": ids, "label": numeric.to_numpy().astype(np.int8)}).to_pandas(), [], found

@@ -37,6 +37,12 @@ from truthsieve.exceptions import InputError
 
 ITEMS_FILE = "items.parquet"
 SOURCE_PREFIX = "source_id="
+BATCH_PREFIX = "batch_date="
+#: A source id (the contract): checked by the configuration and by ingest.
+SOURCE_ID_PATTERN = "[A-Za-z0-9][A-Za-z0-9_.-]{0,63}"
+# Hidden folders of an output root: revisions, publish staging, locks, the work area.
+REVISIONS, STAGING, LOCKS, WORK = ".revisions", ".staging", ".locks", ".work"
+POINTER = "_current.json"  # an object store's pointer to a night's current revision
 LABEL_SUFFIX = ".parquet"
 # Suffixes of files that plausibly hold labels in another spelling or format.
 DATA_SUFFIXES = frozenset({".parquet", ".parq", ".pq", ".csv", ".tsv", ".json", ".jsonl", ".arrow", ".feather", ".xlsx", ".xls"})
@@ -62,6 +68,29 @@ class Note:
 
     def as_dict(self) -> dict:
         return asdict(self)
+
+
+def batch_name(batch_date: str) -> str:
+    """The folder name of one night, in the inbox and in the output root alike."""
+    return f"{BATCH_PREFIX}{batch_date}"
+
+
+def batch_dir(root, batch_date: str):
+    """``root/batch_date=D`` for any path object (local, or object storage)."""
+    return root / batch_name(batch_date)
+
+
+def batch_date_of(name: str) -> str:
+    return name.removeprefix(BATCH_PREFIX)
+
+
+def source_name(source_id: str) -> str:
+    return f"{SOURCE_PREFIX}{source_id}"
+
+
+def work_dir(root, batch_date: str, run: str | None = None):
+    """The work area of one night (``run``: a private area for one command-line screen)."""
+    return root / WORK / (batch_name(batch_date) if run is None else f"{batch_name(batch_date)}.{run}")
 
 
 def display(name: str) -> str:
@@ -122,7 +151,7 @@ def scan_batch(inbox: str | Path, batch_date: str) -> BatchLayout:
     :raises InputError: the batch folder is missing or is a link leaving the inbox.
     """
     inbox = Path(inbox)
-    folder = inbox / f"batch_date={batch_date}"
+    folder = batch_dir(inbox, batch_date)
     if not folder.is_dir():
         raise InputError(f"{folder}: no such batch folder")
     if not inside(folder, inbox):

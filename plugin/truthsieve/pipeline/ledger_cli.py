@@ -121,6 +121,7 @@ def verify_out_folder(out: Path) -> list[dict]:
 
     from truthsieve.exceptions import LedgerBrokenError
     from truthsieve.pipeline import ledger
+    from truthsieve.pipeline.layout import batch_name
     from truthsieve.pipeline.outputs import batch_location, published_dates
 
     if not Path(out).is_dir():
@@ -134,10 +135,10 @@ def verify_out_folder(out: Path) -> list[dict]:
     for date in dates:
         sha = hashlib.sha256((batch_location(out, date) / "decision.json").read_bytes()).hexdigest()
         if date not in latest:
-            raise LedgerBrokenError(f"night {date}: batch_date={date}/decision.json is published but the ledger has no night_published for it")
+            raise LedgerBrokenError(f"night {date}: {batch_name(date)}/decision.json is published but the ledger has no night_published for it")
         if sha != latest[date]:
             raise LedgerBrokenError(
-                f"night {date}: batch_date={date}/decision.json has sha256 {sha[:12]}..., not the {latest[date][:12]}... "
+                f"night {date}: {batch_name(date)}/decision.json has sha256 {sha[:12]}..., not the {latest[date][:12]}... "
                 "the ledger's latest night_published records (edited after publishing)"
             )
     return entries

@@ -14,7 +14,7 @@ from collections.abc import Iterable, Sequence
 from pathlib import Path
 
 from truthsieve.exceptions import ConfigError
-from truthsieve.pipeline.layout import ITEMS_FILE, inside
+from truthsieve.pipeline.layout import ITEMS_FILE, batch_dir, inside
 
 
 def check_out_location(inbox: str | Path, out: str | Path) -> Path:
@@ -61,7 +61,7 @@ def check_features_present(inbox: str | Path, dates: Sequence[str], features: It
     seen: set[str] = set()
     schemas = 0
     for date in dates:
-        path = inbox / f"batch_date={date}" / ITEMS_FILE
+        path = batch_dir(inbox, date) / ITEMS_FILE
         if not path.is_file() or not inside(path, inbox):
             continue
         try:

@@ -32,11 +32,8 @@ import pyarrow.parquet as pq
 
 from truthsieve.core.source_checks import SourceHistory
 from truthsieve.exceptions import BatchLockedError, InputError
+from truthsieve.pipeline.layout import BATCH_PREFIX, LOCKS, POINTER, REVISIONS, STAGING, batch_date_of, batch_dir, batch_name
 
-STAGING = ".staging"
-LOCKS = ".locks"
-REVISIONS = ".revisions"
-POINTER = "_current.json"
 CRASH_VARIABLE = "TRUTHSIEVE_CRASH_AT"
 CARRIED_FORWARD = ("alerts_sent.json",)  # delivery records survive a republish of the same night
 
@@ -52,7 +49,7 @@ def crash_point(step: str) -> None:
 
 
 def batch_output(out: str | Path, batch_date: str) -> Path:
-    return Path(out) / f"batch_date={batch_date}"
+    return batch_dir(Path(out), batch_date)
 
 
 def dumps_decision(decision: Mapping) -> bytes:
@@ -99,7 +96,7 @@ def flock_file(path: Path, what: str, timeout: float) -> Iterator[None]:
 
 def date_lock(out: str | Path, batch_date: str, timeout: float = 600.0):
     """Exclusive lock of one batch date across processes on this file system."""
-    return flock_file(Path(out) / LOCKS / f"batch_date={batch_date}.lock", f"batch {batch_date}", timeout)
+    return flock_file(Path(out) / LOCKS / f"{batch_name(batch_date)}.lock", f"batch {batch_date}", timeout)
 
 
 def _revision_target(final: Path) -> Path | None:
@@ -120,11 +117,11 @@ def recover(out: str | Path, batch_date: str) -> None:
     final = batch_output(out, batch_date)
     staging = out / STAGING
     if staging.is_dir():
-        leftovers = sorted(staging.glob(f"batch_date={batch_date}.*"))
+        leftovers = sorted(staging.glob(f"{batch_name(batch_date)}.*"))
         previous = [p for p in leftovers if p.name.endswith(".previous") and p.is_dir()]
         if not final.exists() and not final.is_symlink() and previous:
             os.rename(previous[-1], final)
-        for path in staging.glob(f"batch_date={batch_date}.*"):
+        for path in staging.glob(f"{batch_name(batch_date)}.*"):
             if path.is_dir() and not path.is_symlink():
                 shutil.rmtree(path, ignore_errors=True)
             else:
@@ -132,7 +129,7 @@ def recover(out: str | Path, batch_date: str) -> None:
     current = _revision_target(final)
     revisions = out / REVISIONS
     if revisions.is_dir():
-        for path in revisions.glob(f"batch_date={batch_date}.*"):
+        for path in revisions.glob(f"{batch_name(batch_date)}.*"):
             if current is None or path.name != current.name:
                 shutil.rmtree(path, ignore_errors=True)
 
@@ -154,7 +151,7 @@ def publish(out: str | Path, batch_date: str, files: Mapping[str, bytes]) -> Pat
         if name not in files and final.is_dir() and (final / name).is_file():
             files[name] = (final / name).read_bytes()
     token = uuid.uuid4().hex
-    revision = out / REVISIONS / f"batch_date={batch_date}.{token}"
+    revision = out / REVISIONS / f"{batch_name(batch_date)}.{token}"
     revision.mkdir(parents=True)
     for k, (relative, data) in enumerate(sorted(files.items())):
         target = revision / relative
@@ -167,11 +164,11 @@ def publish(out: str | Path, batch_date: str, files: Mapping[str, bytes]) -> Pat
     if final.is_dir() and previous is None:
         # A plain folder from before revisions: move it into a revision of its own first
         # (a kill right here is undone by recover(), which puts it back).
-        legacy = out / STAGING / f"batch_date={batch_date}.{token}.previous"
+        legacy = out / STAGING / f"{batch_name(batch_date)}.{token}.previous"
         legacy.parent.mkdir(parents=True, exist_ok=True)
         os.rename(final, legacy)
         previous = legacy
-    link = out / STAGING / f"batch_date={batch_date}.{token}.link"
+    link = out / STAGING / f"{batch_name(batch_date)}.{token}.link"
     link.parent.mkdir(parents=True, exist_ok=True)
     os.symlink(os.path.join(REVISIONS, revision.name), link)
     crash_point("link_created")
@@ -218,17 +215,17 @@ def batch_location(out, batch_date: str):
     """Where the published files of ``batch_date`` are: the revision an object store's
     pointer names, else ``<out>/batch_date=D`` (locally a symlink to its revision)."""
     out = as_location(out)
-    folder = out / f"batch_date={batch_date}"
+    folder = batch_dir(out, batch_date)
     pointer = folder / POINTER
     if not isinstance(folder, Path) and pointer.is_file():
-        return out / REVISIONS / f"batch_date={batch_date}" / json.loads(pointer.read_text())["revision"]
+        return out / REVISIONS / batch_name(batch_date) / json.loads(pointer.read_text())["revision"]
     return folder
 
 
 def published_dates(out) -> list[str]:
     """Batch dates with a complete published night, oldest first."""
     out = as_location(out)
-    dates = {p.name.removeprefix("batch_date=") for p in out.glob("batch_date=*")}
+    dates = {batch_date_of(p.name) for p in out.glob(f"{BATCH_PREFIX}*")}
     return sorted(d for d in dates if (batch_location(out, d) / "decision.json").is_file())
 
 

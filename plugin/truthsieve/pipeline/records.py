@@ -89,6 +89,8 @@ class FileCheck:
     errors: list[ErrorRecord] = field(default_factory=list)
     notes: list[Note] = field(default_factory=list)
     contents: dict[str, bytes] = field(default_factory=dict, repr=False)
+    #: a valid source's labelled items as positions in the items table (None otherwise)
+    item_codes: np.ndarray | None = field(default=None, repr=False)
 
     @property
     def valid(self) -> bool:
@@ -125,6 +127,40 @@ class FileCheck:
             return name, None
         self.contents[name] = data
         return name, data
+
+
+@dataclass
+class Intake:
+    """What one night's inbox held after validation: the items check and each source's."""
+
+    batch_date: str
+    items: FileCheck
+    sources: list[FileCheck] = field(default_factory=list)
+
+    @property
+    def valid_sources(self) -> list[FileCheck]:
+        return [s for s in self.sources if s.valid]
+
+    @property
+    def quarantined(self) -> list[FileCheck]:
+        return [s for s in self.sources if not s.valid]
+
+    @property
+    def labels(self) -> pd.DataFrame:
+        frames = [s.table for s in self.valid_sources]
+        return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=["item_id", "source_id", "label"])
+
+    @property
+    def errors(self) -> list[ErrorRecord]:
+        return [e for check in [self.items, *self.sources] for e in check.errors]
+
+    @property
+    def inputs(self) -> list[InputFile]:
+        return [f for check in [self.items, *self.sources] for f in check.inputs]
+
+    @property
+    def notes(self) -> list[Note]:
+        return [n for check in [self.items, *self.sources] for n in check.notes]
 
 
 def quarantine_bytes(inbox: str | Path, check: FileCheck) -> dict[str, bytes]:

@@ -21,12 +21,13 @@ from __future__ import annotations
 import json
 from collections.abc import Mapping
 
+from truthsieve.pipeline.layout import batch_dir
 from truthsieve.pipeline.outputs import as_location
 
 
 def read_published_decision(out, batch_date: str) -> dict | None:
     """The decision already published for ``batch_date`` under ``out``, or None."""
-    path = as_location(out) / f"batch_date={batch_date}" / "decision.json"
+    path = batch_dir(as_location(out), batch_date) / "decision.json"
     if not path.is_file():
         return None
     try:
@@ -56,7 +57,7 @@ def _screened(previous: Mapping | None, intake) -> tuple:
         quarantined = [q.get("source_id") for q in previous.get("quarantined", [])]
     else:
         inputs, errors = intake.inputs, intake.errors
-        notes = [n for check in [intake.items, *intake.sources] for n in check.notes]
+        notes = intake.notes
         quarantined = [s.source_id for s in intake.quarantined] + ([None] if not intake.items.valid else [])
     return (
         _input_digests(inputs),

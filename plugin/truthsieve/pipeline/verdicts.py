@@ -221,7 +221,7 @@ def _record_decision(out: str | Path, batch_date: str, events, lock_timeout: flo
 
 
 def _refresh_index(out: str | Path) -> None:
-    from truthsieve.pipeline.cli import write_index  # the index lives with the command line
+    from truthsieve.pipeline.store import write_index
 
     write_index(Path(out))
 

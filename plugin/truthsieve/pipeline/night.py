@@ -1,0 +1,246 @@
+"""One night, one orchestration: the steps of a night over a :class:`BatchStore`.
+
+``start_night`` → ``check_items`` → ``validate_source`` (per source folder) →
+``fit_consensus`` → ``analyse_source`` (per valid source) → ``publish_night`` (decide,
+publish, record, index) → ``send_alerts`` (Airflow only: the command line leaves the
+messages in ``alerts.json``). :func:`screen_night` runs them in order in one process (the
+command line); each Airflow operator runs exactly one of them. A step reads what the
+steps before it wrote to the store's work area (:mod:`truthsieve.pipeline.work_files`),
+or takes it as an argument when the caller already holds it, so one process never
+re-reads its own work. Inbox files are read once, as bytes, at validation; quarantine
+copies are those bytes. Nothing here reads the environment: the draw key is passed in.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+from functools import cached_property
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+
+from truthsieve.core.draw import DEMO_DRAW_KEY, DRAW_KEY_VARIABLE
+from truthsieve.core.incentives import SourceIncentive, incentive_context, source_incentive
+from truthsieve.core.labels import LabelMatrix, id_array
+from truthsieve.core.mechanisms import ConsensusFit
+from truthsieve.core.rules import RuleClass
+from truthsieve.exceptions import InputError
+from truthsieve.pipeline import ingest, work_files
+from truthsieve.pipeline.analysis import prepare
+from truthsieve.pipeline.config import Config
+from truthsieve.pipeline.decision import Decision, decision_json
+from truthsieve.pipeline.layout import ITEMS_FILE, batch_dir
+from truthsieve.pipeline.records import FileCheck, Intake
+
+#: (key, is_demo_key) of the public demo key, used when an edge passes no secret.
+DEMO_KEY = (DEMO_DRAW_KEY, True)
+
+
+def draw_key_from_environment(environ: Mapping[str, str]) -> tuple[str, bool]:
+    """(key, is_demo_key): the secret in ``TRUTHSIEVE_DRAW_KEY``, or the public demo key.
+
+    Only the edges (the command line, the Airflow operator) call this and pass the key
+    down; nothing below them reads the environment.
+    """
+    key = environ.get(DRAW_KEY_VARIABLE)
+    return (key, False) if key else DEMO_KEY
+
+
+@dataclass(frozen=True)
+class ItemIndex:
+    """The items every source's labels are checked against: ids and weights, in table order."""
+
+    ids: pa.Array
+    weights: np.ndarray
+
+
+def item_index(items: FileCheck) -> ItemIndex | None:
+    """The valid items table's index; None when the items table is invalid."""
+    if not items.valid:
+        return None
+    ids = id_array(items.table["item_id"])
+    if "item_weight" in items.table:
+        return ItemIndex(ids, items.table["item_weight"].to_numpy(dtype=np.float64))
+    return ItemIndex(ids, np.ones(len(ids)))
+
+
+def validate_items_at(inbox: Path, batch_date: str, config: Config) -> FileCheck:
+    """Validate the night's items table (local inbox) against the configured rule class."""
+    kind = config.rule_class.kind
+    return ingest.validate_items(inbox, batch_date, config.rule_class.features, kind == "listed", kind)
+
+
+def validate_source_at(inbox: Path, batch_date: str, folder: str, config: Config, index: ItemIndex | None) -> FileCheck:
+    """Validate one source folder (local inbox) against the items index."""
+    ids, weights = (None, None) if index is None else (index.ids, index.weights)
+    return ingest.validate_source(inbox, batch_dir(inbox, batch_date) / folder, config.registry, ids, weights)
+
+
+# ---- the steps ----
+def start_night(store, batch_date: str) -> list[str]:
+    """Refuse a missing night, clear its work area; returns its source folders."""
+    if not store.batch_exists(batch_date):
+        raise InputError(f"{batch_dir(store.inbox, batch_date)}: no such batch folder")
+    store.clear_work(batch_date)
+    return store.source_folders(batch_date)
+
+
+def check_items(store, batch_date: str, config: Config) -> FileCheck:
+    """Validate the items table once and write it (or its quarantine copy) to the work area."""
+    store.check_locations()
+    with store.local_inbox(batch_date, (ITEMS_FILE,)) as root:
+        check = validate_items_at(root, batch_date, config)
+        work_files.write_items(store, batch_date, check, work_files.quarantine_blob(root, check))
+    return check
+
+
+def validate_source(store, batch_date: str, folder: str, config: Config, index: ItemIndex | None = None) -> FileCheck:
+    """Validate one source folder; write its labels (item codes) or its quarantine copy.
+
+    :param index: the items index; read from the work area when None.
+    """
+    if index is None:
+        index = item_index(work_files.read_items(store, batch_date))
+    with store.local_inbox(batch_date, (folder,)) as root:
+        check = validate_source_at(root, batch_date, folder, config, index)
+        work_files.write_source(store, batch_date, folder, check, work_files.quarantine_blob(root, check))
+    return check
+
+
+@dataclass(frozen=True)
+class Fit:
+    """The consensus fit and what each source's analysis shares."""
+
+    matrix: LabelMatrix
+    rule_class: RuleClass
+    consensus: ConsensusFit
+    global_risks: np.ndarray
+
+    def summary(self) -> dict:
+        rule = self.rule_class.describe(self.consensus.rule)
+        return {"rule": rule, "risk": self.consensus.risk, "sources": len(self.matrix.source_ids)}  # XCom: small
+
+
+def fit_consensus(store, batch_date: str, config: Config, intake: Intake | None = None) -> Fit | None:
+    """The consensus fit (ERM) over the valid sources; None when there is nothing to fit.
+
+    :param intake: the night's validated intake; read from the work area when None.
+    """
+    intake = intake or work_files.read_intake(store, batch_date)
+    if not (intake.items.valid and intake.valid_sources):
+        return None
+    matrix, rule_class, consensus = prepare(intake.labels, intake.items.table, config)
+    return Fit(matrix, rule_class, consensus, incentive_context(matrix, rule_class))
+
+
+def analyse_source(store, batch_date: str, config: Config, source_id: str, fit: Fit | None = None) -> SourceIncentive:
+    """One source's gain bracket and cheapest lie under the fit; written to the work area."""
+    fit = fit or fit_consensus(store, batch_date, config)
+    index = fit.matrix.source_ids.index(source_id)
+    result = source_incentive(fit.matrix, fit.rule_class, fit.consensus, index, config.analysis.incentive_budget, fit.global_risks)
+    work_files.write_incentive(store, batch_date, result)
+    return result
+
+
+@dataclass(frozen=True)
+class Published:
+    """A published night: its typed decision and where its outputs are."""
+
+    typed: Decision
+    output: object
+
+    @property
+    def batch_date(self) -> str:
+        return self.typed.batch_date
+
+    @property
+    def route(self) -> str:
+        return self.typed.route
+
+    @cached_property
+    def decision(self) -> dict:
+        """The decision in its ``decision.json`` form."""
+        return decision_json(self.typed)
+
+    def summary(self) -> dict:
+        """What XCom carries: route, flagged sources, where."""
+        return {"route": self.route, "flagged": self.typed.flagged, "output": str(self.output)}
+
+
+def publish_night(
+    store,
+    batch_date: str,
+    config: Config,
+    draw_key: tuple[str, bool] = DEMO_KEY,
+    intake: Intake | None = None,
+    incentives: list[SourceIncentive] | None = None,
+    index: bool = True,
+) -> Published:
+    """Decide the night and publish its outputs atomically; record it; rewrite the index.
+
+    :param draw_key: (secret, is_demo_key) from :func:`draw_key_from_environment`.
+    :param intake, incentives: read from the work area when None.
+    :param index: rewrite ``index.html`` (a backfill writes it once at the end).
+    """
+    from truthsieve.pipeline.screen import decide_night
+
+    intake = intake or work_files.read_intake(store, batch_date)
+    if incentives is None and intake.items.valid and intake.valid_sources:
+        incentives = work_files.read_incentives(store, batch_date, sorted(s.source_id for s in intake.valid_sources))
+    with store.night(batch_date):
+        decided = decide_night(
+            intake, config, store.history(batch_date, config.routing.drift_window), incentives,
+            in_force_before=store.in_force_before(batch_date), previous=store.published_decision(batch_date),
+            recent=store.recent(batch_date), draw_key=draw_key,
+        )
+        files = {**decided.files, **work_files.quarantine_copies(store, intake)}
+        output = store.publish(batch_date, files)
+        store.record_publication(batch_date, files["decision.json"])
+    if index:
+        store.write_index()
+    return Published(decided.decision, output)
+
+
+def alerts_of(store, batch_date: str) -> list[dict]:
+    """The published night's alert messages (``alerts.json``)."""
+    from truthsieve.pipeline.outputs import batch_location
+
+    return json.loads((batch_location(store.out, batch_date) / "alerts.json").read_text())["messages"]
+
+
+def send_alerts(store, batch_date: str, send: Callable[[dict], None]) -> dict:
+    """Deliver each alert message once through ``send``, recording its sha256 in
+    ``alerts_sent.json`` after each delivery (a retry skips what is recorded)."""
+    from truthsieve.pipeline.outputs import batch_location, dumps_decision
+
+    record = batch_location(store.out, batch_date) / "alerts_sent.json"
+    sent = json.loads(record.read_text())["sent"] if record.is_file() else []
+    done, messages, fresh = {entry["sha256"] for entry in sent}, alerts_of(store, batch_date), 0
+    for message in messages:
+        digest = hashlib.sha256(dumps_decision(message)).hexdigest()
+        if digest in done:
+            continue
+        send(message)
+        sent.append({**message, "sha256": digest})
+        done.add(digest)
+        fresh += 1
+        store.record_alerts_sent(batch_date, dumps_decision({"batch_date": batch_date, "sent": sent}))
+    return {"sent": fresh, "already_sent": len(messages) - fresh}
+
+
+def screen_night(store, batch_date: str, config: Config, draw_key: tuple[str, bool] = DEMO_KEY, index: bool = True) -> Published:
+    """Every step of one night in order, in this process (the command line)."""
+    folders = start_night(store, batch_date)
+    try:
+        items = check_items(store, batch_date, config)
+        items_index = item_index(items)
+        intake = Intake(batch_date, items, [validate_source(store, batch_date, f, config, items_index) for f in folders])
+        fit = fit_consensus(store, batch_date, config, intake)
+        incentives = None if fit is None else [analyse_source(store, batch_date, config, s, fit) for s in fit.matrix.source_ids]
+        return publish_night(store, batch_date, config, draw_key, intake, incentives, index)
+    finally:
+        store.clear_work(batch_date)

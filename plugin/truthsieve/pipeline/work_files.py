@@ -1,0 +1,163 @@
+"""The work area of one night: what each step writes for the later ones.
+
+Files under the store's work folder (see :meth:`BatchStore.work`)::
+
+    items.parquet, items.json           the validated items table; its check's summary (written last)
+    sources/<folder>.parquet            one valid source's labels: ``item`` (int32 position in the
+                                        items table), ``label`` (int8); ``item_id`` strings instead
+                                        when the items table is invalid
+    sources/<folder>.json               that source's check summary (inputs with sha256, errors, notes)
+    quarantine/<folder>.parquet         an invalid check's input bytes (``path``, ``data``, binary),
+    quarantine/items.parquet            taken from the bytes validated, never re-read
+    incentives/<source_id>.json         one source's incentive analysis
+
+A summary is written after its table, so a present summary means a whole step.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import asdict
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from truthsieve.core.incentives import SourceIncentive
+from truthsieve.core.labels import id_array
+from truthsieve.exceptions import InputError
+from truthsieve.pipeline.layout import batch_name
+from truthsieve.pipeline.outputs import parquet_bytes
+from truthsieve.pipeline.records import FileCheck, Intake, quarantine_bytes
+
+ITEMS_TABLE, ITEMS_SUMMARY = "items.parquet", "items.json"
+ITEMS_QUARANTINE = "quarantine/items.parquet"
+
+
+class StepNotRunError(InputError):
+    """A step read work that the step before it did not write in this run."""
+
+
+def source_table(folder: str) -> str:
+    return f"sources/{folder}.parquet"
+
+
+def source_summary(folder: str) -> str:
+    return f"sources/{folder}.json"
+
+
+def source_quarantine(folder: str) -> str:
+    return f"quarantine/{folder}.parquet"
+
+
+def incentive_file(source_id: str) -> str:
+    return f"incentives/{source_id}.json"
+
+
+def _json(data) -> bytes:
+    return json.dumps(data, sort_keys=True).encode()
+
+
+def _read_parquet(data: bytes) -> pa.Table:
+    return pq.ParquetFile(pa.BufferReader(data)).read()
+
+
+def quarantine_blob(inbox: Path, check: FileCheck) -> bytes | None:
+    """An invalid check's input bytes (those validated) as one small Parquet file."""
+    if check.valid:
+        return None
+    copies = quarantine_bytes(inbox, check)
+    paths = [p.encode("utf-8", "surrogateescape") for p in copies]
+    return parquet_bytes(pa.table({"path": pa.array(paths, pa.binary()), "data": pa.array(list(copies.values()), pa.binary())}))
+
+
+def write_items(store, batch_date: str, check: FileCheck, quarantine: bytes | None) -> None:
+    if check.valid:
+        store.write_work(batch_date, ITEMS_TABLE, parquet_bytes(pa.Table.from_pandas(check.table, preserve_index=False)))
+    if quarantine is not None:
+        store.write_work(batch_date, ITEMS_QUARANTINE, quarantine)
+    store.write_work(batch_date, ITEMS_SUMMARY, _json(check.summary()))  # last: the marker
+
+
+def read_items(store, batch_date: str) -> FileCheck:
+    summary = store.read_work(batch_date, ITEMS_SUMMARY)
+    if summary is None:
+        raise StepNotRunError("the items table was not checked in this run (step check_items)")
+    data = store.read_work(batch_date, ITEMS_TABLE)
+    return FileCheck.from_summary(json.loads(summary), None if data is None else _read_parquet(data).to_pandas())
+
+
+def write_source(store, batch_date: str, folder: str, check: FileCheck, quarantine: bytes | None) -> None:
+    if check.valid:
+        labels = check.table["label"].to_numpy(dtype=np.int8)
+        if check.item_codes is not None:
+            table = pa.table({"item": pa.array(check.item_codes.astype(np.int32)), "label": pa.array(labels)})
+        else:
+            table = pa.table({"item_id": id_array(check.table["item_id"]), "label": pa.array(labels)})
+        store.write_work(batch_date, source_table(folder), parquet_bytes(table))
+    if quarantine is not None:
+        store.write_work(batch_date, source_quarantine(folder), quarantine)
+    store.write_work(batch_date, source_summary(folder), _json(check.summary()))
+
+
+def read_source(store, batch_date: str, folder: str, item_ids: pa.Array | None) -> FileCheck:
+    """One source's check; its labels as the long table, item ids decoded from their codes."""
+    summary = store.read_work(batch_date, source_summary(folder))
+    if summary is None:
+        raise StepNotRunError(f"{folder} was not validated in this run")
+    check = FileCheck.from_summary(json.loads(summary), None)
+    data = store.read_work(batch_date, source_table(folder))
+    if data is not None:
+        table = _read_parquet(data)
+        if "item" in table.column_names:
+            codes = table.column("item").to_numpy()
+            check.item_codes = codes
+            ids = item_ids.take(pa.array(codes))
+        else:
+            ids = table.column("item_id")
+        frame = pa.table({"item_id": ids, "label": table.column("label")}).to_pandas()
+        frame.insert(1, "source_id", check.source_id)
+        check.table = frame
+    return check
+
+
+def read_intake(store, batch_date: str) -> Intake:
+    """The night's validated intake, rebuilt from the work area only."""
+    items = read_items(store, batch_date)
+    item_ids = id_array(items.table["item_id"]) if items.valid else None
+    intake = Intake(batch_date, items)
+    for folder in store.source_folders(batch_date):
+        intake.sources.append(read_source(store, batch_date, folder, item_ids))
+    return intake
+
+
+def quarantine_copies(store, intake: Intake) -> dict[str, bytes]:
+    """``quarantine/<inbox-relative path inside the night>`` -> the bytes validated."""
+    names = ([ITEMS_QUARANTINE] if not intake.items.valid else []) + [
+        source_quarantine(folder) for folder, check in zip(store.source_folders(intake.batch_date), intake.sources) if not check.valid
+    ]
+    copies = {}
+    for name in names:
+        data = store.read_work(intake.batch_date, name)
+        if data is None:
+            continue
+        table = _read_parquet(data)
+        for path, content in zip(table.column("path").to_pylist(), table.column("data").to_pylist()):
+            relative = Path(path.decode("utf-8", "surrogateescape")).relative_to(batch_name(intake.batch_date))
+            copies[f"quarantine/{relative.as_posix()}"] = content
+    return copies
+
+
+def write_incentive(store, batch_date: str, result: SourceIncentive) -> None:
+    store.write_work(batch_date, incentive_file(result.source_id), _json(asdict(result)))
+
+
+def read_incentives(store, batch_date: str, source_ids) -> list[SourceIncentive]:
+    results = []
+    for source_id in source_ids:
+        data = store.read_work(batch_date, incentive_file(source_id))
+        if data is None:
+            raise StepNotRunError(f"the incentives of {source_id} were not analysed in this run")
+        results.append(SourceIncentive(**json.loads(data)))
+    return results

@@ -1,0 +1,128 @@
+"""BatchStore: the local store (real files) and the object store on fsspec's ``memory://``."""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from inboxes import write_batch, write_config
+from truthsieve.exceptions import ConfigError
+from truthsieve.pipeline import layout, night
+from truthsieve.pipeline.config import load_config
+from truthsieve.pipeline.store import LocalStore, private_run
+
+DATE = "2026-11-03"
+
+
+def test_layout_names_are_the_contract_paths(tmp_path):
+    # The contract: <root>/batch_date=YYYY-MM-DD/ and source_id=<id>/ (CONTRACT.md, "On disk").
+    assert layout.batch_dir(tmp_path, DATE) == tmp_path / "batch_date=2026-11-03"
+    assert layout.source_name("farm-a") == "source_id=farm-a"
+    assert layout.work_dir(tmp_path, DATE) == tmp_path / ".work" / "batch_date=2026-11-03"
+    assert layout.work_dir(tmp_path, DATE, "7.ab") == tmp_path / ".work" / "batch_date=2026-11-03.7.ab"
+    assert layout.batch_date_of("batch_date=2026-11-03") == DATE
+
+
+def test_local_work_area_round_trip_and_clear(tmp_path):
+    shared, private = LocalStore(tmp_path / "in", tmp_path / "out"), LocalStore(tmp_path / "in", tmp_path / "out", run="1.x")
+    shared.write_work(DATE, "sources/a.json", b"shared")
+    private.write_work(DATE, "sources/a.json", b"private")
+    assert shared.read_work(DATE, "sources/a.json") == b"shared" and private.read_work(DATE, "sources/a.json") == b"private"
+    assert shared.read_work(DATE, "missing.json") is None
+    private.clear_work(DATE)
+    assert private.read_work(DATE, "sources/a.json") is None
+    assert shared.read_work(DATE, "sources/a.json") == b"shared"  # another run's area is untouched
+    assert not list((tmp_path / "out" / ".work").rglob("*.tmp"))
+
+
+def test_a_dead_screens_private_work_area_is_removed_under_the_date_lock(tmp_path):
+    child = subprocess.Popen([sys.executable, "-c", "pass"])
+    child.wait()  # its pid is now free (reuse within this test is all but impossible)
+    store = LocalStore(tmp_path / "in", tmp_path / "out", run=private_run())
+    dead = LocalStore(tmp_path / "in", tmp_path / "out", run=f"{child.pid}.dead")
+    dead.write_work(DATE, "items.json", b"{}")
+    store.write_work(DATE, "items.json", b"{}")
+    with store.night(DATE):
+        pass
+    assert not dead.work(DATE).exists()
+    assert store.work(DATE).exists() and store.run.startswith(f"{os.getpid()}.")
+
+
+def test_local_source_folders_and_location_checks(tmp_path):
+    inbox = tmp_path / "inbox"
+    write_batch(inbox, DATE, seed=1)
+    (inbox / f"batch_date={DATE}" / "notes.txt").write_text("stray")
+    store = LocalStore(inbox, tmp_path / "out")
+    assert store.source_folders(DATE) == sorted(p.name for p in (inbox / f"batch_date={DATE}").glob("source_id=*"))
+    assert store.batch_exists(DATE) and not store.batch_exists("2026-11-04")
+    with pytest.raises(ConfigError, match="inside the inbox"):
+        LocalStore(inbox, inbox / "out").check_locations()
+
+
+@pytest.fixture
+def memory(request):
+    pytest.importorskip("airflow.sdk")
+    import fsspec
+    from airflow.sdk import ObjectStoragePath
+    from airflow.sdk.io import attach
+
+    attach("memory", fs=fsspec.filesystem("memory"))
+    root = f"memory://truthsieve-store-{request.node.name}"
+    yield root
+    bucket = ObjectStoragePath(root)
+    if bucket.exists():
+        bucket.rmdir(recursive=True)
+
+
+def upload(local: Path, remote) -> None:
+    for path in local.rglob("*"):
+        if path.is_file():
+            target = remote / str(path.relative_to(local))
+            target.parent.mkdir(parents=True, exist_ok=True)
+            target.write_bytes(path.read_bytes())
+
+
+@pytest.mark.airflow
+def test_object_store_reads_the_inbox_and_publishes_the_same_night_as_the_local_store(memory, tmp_path):
+    from airflow.sdk import ObjectStoragePath
+
+    from truthsieve.airflow import storage
+    from truthsieve.pipeline.outputs import batch_location
+
+    inbox = tmp_path / "inbox"
+    write_batch(inbox, DATE, seed=2, bend={"south": 16.0})
+    config = load_config(write_config(tmp_path / "c.yaml"))
+    upload(inbox, ObjectStoragePath(f"{memory}/inbox"))
+    store = storage.store_for(f"{memory}/inbox", f"{memory}/out")
+    assert type(store).__name__ == "ObjectStore"
+    assert store.source_folders(DATE) == LocalStore(inbox, tmp_path / "out").source_folders(DATE)
+    with store.local_inbox(DATE, ("source_id=south",)) as root:
+        copied = sorted(str(p.relative_to(root)) for p in root.rglob("*") if p.is_file())
+    assert copied == [f"batch_date={DATE}/items.parquet", f"batch_date={DATE}/source_id=south/labels.parquet"]
+
+    remote = night.screen_night(store, DATE, config)
+    local = night.screen_night(LocalStore(inbox, tmp_path / "out"), DATE, config)
+    out = ObjectStoragePath(f"{memory}/out")
+    current = batch_location(out, DATE)
+    assert ".revisions" in str(current)  # readers follow the pointer to a revision prefix
+    assert str(remote.output) == str(out / f"batch_date={DATE}")
+    assert (current / "decision.json").read_bytes() == (tmp_path / "out" / f"batch_date={DATE}" / "decision.json").read_bytes()
+    assert remote.decision == local.decision and remote.typed == local.typed
+    assert store.published_decision(DATE)["batch_date"] == DATE
+    assert store.history("2026-11-04", 5)["south"].batches == 1  # the published night is the next night's history
+    assert not store.work(DATE).exists()
+
+
+@pytest.mark.airflow
+def test_object_store_work_area_round_trip(memory):
+    from truthsieve.airflow import storage
+
+    store = storage.store_for(f"{memory}/inbox", f"{memory}/out")
+    store.write_work(DATE, "sources/source_id=a.json", b'{"x": 1}')
+    assert store.read_work(DATE, "sources/source_id=a.json") == b'{"x": 1}'
+    store.clear_work(DATE)
+    assert store.read_work(DATE, "sources/source_id=a.json") is None
