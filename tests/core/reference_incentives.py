@@ -147,3 +147,25 @@ def reference_incentive(matrix, rule_class, consensus_rule: int, consensus_risk:
 
 def private_costs(matrix, index):
     return report_costs(matrix, index, matrix.labels[index])
+
+
+INTEGER_FIELDS = ("own_best_rule", "target_rule", "others_rule", "checks", "gain_exact", "source_id")
+
+
+def assert_every_source_matches(matrix, rule_class, consensus, budget=None) -> None:
+    """Every field of the fast analysis of every source equals this full-pass oracle
+    (integers exactly, floats to 1e-9: the two sum in different orders)."""
+    from dataclasses import asdict
+
+    import pytest
+
+    from truthsieve.core.incentives import source_incentive
+
+    for i in range(matrix.n_sources):
+        fast = asdict(source_incentive(matrix, rule_class, consensus, i, budget))
+        expected = reference_incentive(matrix, rule_class, consensus.rule, consensus.risk, i, budget)
+        for name, value in expected.items():
+            if name in INTEGER_FIELDS:
+                assert fast[name] == value, (name, i)
+            else:
+                assert fast[name] == pytest.approx(value, abs=1e-9), (name, i)
