@@ -72,17 +72,17 @@ def summary(decision: dict, output: Path) -> str:
         lines.append(f"  {mark} [{reason['code']}] {reason['message']}")
     mechanism = decision["mechanism"]
     if mechanism:
-        lines.append(f"  consensus: {rule_text(decision['consensus']['rule'])} (risk {decision['consensus']['risk']:.4f})")
+        lines.append(f"  consensus: {rule_text(decision['consensus']['rule'], decision.get('classes'))} (risk {decision['consensus']['risk']:.4f})")
         ratio = "n/a" if mechanism["ratio"] is None else f"{mechanism['ratio']:.3f}"
         lines.append(
             f"  {mechanism['name']}: {len(mechanism['lottery'])} entries, expected risk {mechanism['expected_risk']:.4f}, "
             f"ratio {ratio} (guarantee {mechanism['guarantee']:.3f}{'' if mechanism['guarantee_applies'] else ', not applicable'})"
         )
         for entry in mechanism["lottery"]:
-            lines.append(f"      p={entry['probability']:.3f}  {entry['source_id'] or '-':<14} {rule_text(entry['rule'])}")
+            lines.append(f"      p={entry['probability']:.3f}  {entry['source_id'] or '-':<14} {rule_text(entry['rule'], decision.get('classes'))}")
         draw = decision["draw"]
         status = "in force from tonight" if decision["route"] == "aggregate" else "would apply if approved; not in force"
-        lines.append(f"  drawn (u={draw['u']:.6f}, {status}): {draw['source_id'] or '-'}: {rule_text(draw['rule'])}")
+        lines.append(f"  drawn (u={draw['u']:.6f}, {status}): {draw['source_id'] or '-'}: {rule_text(draw['rule'], decision.get('classes'))}")
     flagged = [f"{s['source_id']} ({', '.join(s['flags'])})" for s in decision["sources"] if s["flags"]]
     lines.append(f"  flagged: {'; '.join(flagged) if flagged else 'none'}")
     for q in decision["quarantined"]:
