@@ -55,8 +55,12 @@ def build_parser() -> argparse.ArgumentParser:
     backfill.add_argument("--out", required=True, type=Path)
     backfill.add_argument("--lock-timeout", type=_seconds, default=600.0)
 
-    demo = commands.add_parser("demo", help="generate the grain cooperative demo (if missing) and backfill its 14 nights")
-    demo.add_argument("--out", type=Path, default=Path("out/demo"), help="output root (default out/demo)")
+    demo = commands.add_parser("demo", help="generate a demo inbox (if missing) and backfill its nights")
+    demo.add_argument(
+        "--scenario", choices=("grain", "grades"), default="grain",
+        help="grain: accept/reject, 14 nights with verdicts (default); grades: four classes, 7 nights",
+    )
+    demo.add_argument("--out", type=Path, default=None, help="output root (default out/demo; out/grades for --scenario grades)")
     demo.add_argument("--inbox", type=Path, default=None, help="demo inbox (default: <out>-inbox)")
     add_ledger_commands(commands)
     return parser
@@ -174,17 +178,19 @@ def run(argv: Sequence[str] | None = None) -> int:
         return run_ledger_command(args)
     from truthsieve.pipeline import demo
 
-    inbox = args.inbox or args.out.with_name(args.out.name + "-inbox")
-    check_out_location(inbox, args.out)
-    if not demo.batch_present(inbox, demo.night_dates()[-1]):
+    out = args.out or demo.DEFAULT_OUT[args.scenario]
+    story = demo.scenario(args.scenario)
+    inbox = args.inbox or out.with_name(out.name + "-inbox")
+    check_out_location(inbox, out)
+    if not demo.batch_present(inbox, story.night_dates()[-1]):
         print(f"generating the demo inbox in {inbox}")
-        demo.generate_inbox(inbox)
-    dates = demo.night_dates()
-    code = backfill(inbox, dates, None, args.out, 600.0, config=demo.demo_config())
-    if code == EXIT_OK:
+        story.generate_inbox(inbox)
+    dates = story.night_dates()
+    code = backfill(inbox, dates, None, out, 600.0, config=story.demo_config())
+    if code == EXIT_OK and args.scenario == "grain":
         from truthsieve.pipeline.ledger_cli import finish_demo
 
-        finish_demo(args.out, inbox)
+        finish_demo(out, inbox)
     return code
 
 
