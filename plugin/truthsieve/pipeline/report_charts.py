@@ -171,7 +171,8 @@ def class_plot(values: np.ndarray, majority: np.ndarray, share: np.ndarray, feat
             f"<circle cx='{sx(v):.1f}' cy='{sy(y):.1f}' r='{r:.1f}' fill='{colours[int(c)]}' fill-opacity='0.8' stroke='{P['ink']}' stroke-width='0.4'/>"
         )
     parts.append(f"<text x='{PAD + 4}' y='{PAD - 12}' font-size='10' id='feature-plot-note'>{e(note)}</text>")
-    legend_x = W - PAD - 96
+    legend_x = PAD + 8  # bottom left: a majority share is at least 1/K, so that corner is mostly empty
+    parts.append(f"<rect x='{legend_x - 4}' y='{H - PAD - 14 * k - 18}' width='104' height='{14 * k + 8}' fill='{P['panel']}' stroke='{P['line']}'/>")
     for row, (name, colour) in enumerate(zip(names, colours)):
         y = H - PAD - 14 * (k - row) - 4
         parts.append(f"<rect x='{legend_x}' y='{y - 8}' width='10' height='10' fill='{colour}' stroke='{P['ink']}' stroke-width='0.6'/>")
