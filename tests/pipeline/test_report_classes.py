@@ -103,3 +103,12 @@ def test_a_constant_k4_night_names_classes_in_decision_and_report(tmp_path):
     assert decision["rule_class"]["size"] == 4  # K constant rules
     assert "milling (2) for every lot" in result.stdout
     assert "milling (2) for every lot" in (out / "batch_date=2026-12-01" / "report.html").read_text()
+
+
+@pytest.mark.parametrize("code", ["unknown_class_name", "class_index_out_of_range", "rule_class_out_of_range"])
+def test_every_k_class_input_error_has_a_fix(code):
+    from truthsieve.pipeline.evidence import fix_for
+    from truthsieve.pipeline.records import CODE_OF_FORMER
+
+    assert CODE_OF_FORMER.get(code, code) == code  # no former code: the record's code is the rule
+    assert "class" in fix_for(code) and fix_for(code) != fix_for("no_such_code")

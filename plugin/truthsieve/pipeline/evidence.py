@@ -126,6 +126,10 @@ FIXES = {
     "folder_holds_no_labels": "put the grades file (*.parquet) into the folder",
     "misnamed_label_file": "name the grades file *.parquet",
     "link_outside_inbox": "deliver the file itself, not a link",
+    # K classes (configuration key classes): these codes are the rules' own names
+    "unknown_class_name": "write each label as one of the configured class names, spelt exactly, or as its class index",
+    "class_index_out_of_range": "write class indices 0..K-1 of the configured classes",
+    "rule_class_out_of_range": "the platform must write listed rule columns as class indices 0..K-1",
 }
 
 
