@@ -81,6 +81,13 @@ def test_listed_rule_columns_hold_class_indices_when_classes_are_named(tmp_path)
     assert [(e.row, e.column, e.rule) for e in check.errors] == [
         (3, "rule__odd", "null_rule_value"), (2, "rule__odd", "rule_class_out_of_range"),
     ]
+    # a rule value error does not hide the table's other row errors (here a repeated item_id on row 4)
+    folder = tmp_path / "inbox" / f"batch_date={DATE}"
+    pq.write_table(pa.table({"item_id": IDS[:3] + ["lot-1"], "test_weight_kg_hl": [72.0, 76.0, 78.0, 81.0], **rules}), folder / "items.parquet")
+    check = ingest.validate_items(inbox, DATE, listed=True, kind="listed", classes=GRADES)
+    assert [(e.row, e.column, e.rule) for e in check.errors] == [
+        (4, "item_id", "duplicate_item_id"), (3, "rule__odd", "null_rule_value"), (2, "rule__odd", "rule_class_out_of_range"),
+    ]
     good = tmp_path / "good"
     inbox, _ = _night(good, {}, {"rule__heavy": rules["rule__heavy"]})
     check = ingest.validate_items(inbox, DATE, listed=True, kind="listed", classes=GRADES)

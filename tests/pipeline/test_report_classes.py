@@ -57,6 +57,8 @@ def test_routing_reasons_change_words_only_for_more_than_two_classes():
     assert "other than class 0" in reason_words("drift_positive_rate", grades)
     assert "macro-averaged recall" in reason_words("low_reliability", grades)
     assert reason_words("pulls_fit", grades) == reason_words("pulls_fit", binary)
+    duo = Config.model_validate({**base, "classes": ["reject", "accept"]})  # two named classes read as binary
+    assert reason_words("drift_positive_rate", duo) == reason_words("drift_positive_rate", binary)
 
 
 def test_majority_class_and_its_share_by_hand():
@@ -112,3 +114,18 @@ def test_every_k_class_input_error_has_a_fix(code):
 
     assert CODE_OF_FORMER.get(code, code) == code  # no former code: the record's code is the rule
     assert "class" in fix_for(code) and fix_for(code) != fix_for("no_such_code")
+
+
+def test_a_listed_k4_night_reads_integer_rule_columns_through_the_command_line(tmp_path):
+    inbox, config = _constant_night(tmp_path)
+    items = inbox / "batch_date=2026-12-01" / "items.parquet"
+    table = pq.read_table(items)
+    table = table.append_column("rule__heavy", pa.array([1, 2, 2, 3], pa.int8())).append_column("rule__all_reject", pa.array([0, 0, 0, 0], pa.int8()))
+    pq.write_table(table, items)
+    config.write_text(config.read_text().replace("kind: constant", "kind: listed"))
+    out = tmp_path / "out"
+    result = cli("screen", "--inbox", str(inbox), "--date", "2026-12-01", "--config", str(config), "--out", str(out))
+    assert result.returncode == 0, result.stderr
+    decision = json.loads((out / "batch_date=2026-12-01" / "decision.json").read_text())
+    # rule__heavy gives feed, milling, milling, premium: exactly the lab's labels, risk 0
+    assert decision["errors"] == [] and decision["consensus"] == {"rule": {"kind": "listed", "name": "heavy"}, "risk": 0.0}
