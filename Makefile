@@ -3,7 +3,7 @@ VENV   := .venv
 PYTHON := $(VENV)/bin/python
 STAMP  := $(VENV)/.installed
 
-.PHONY: setup demo test typecheck test-fast bench lock clean
+.PHONY: setup demo demo-grades test typecheck test-fast bench lock clean
 
 setup: $(STAMP)
 
@@ -16,6 +16,9 @@ $(STAMP): pyproject.toml requirements.lock
 
 demo: setup
 	$(VENV)/bin/truthsieve demo --out out/demo
+
+demo-grades: setup
+	$(VENV)/bin/truthsieve demo --scenario grades --out out/grades
 
 test: setup typecheck
 	$(PYTHON) -m pytest -q

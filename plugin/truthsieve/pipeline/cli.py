@@ -55,8 +55,12 @@ def build_parser() -> argparse.ArgumentParser:
     backfill.add_argument("--out", required=True, type=Path)
     backfill.add_argument("--lock-timeout", type=_seconds, default=600.0)
 
-    demo = commands.add_parser("demo", help="generate the grain cooperative demo (if missing) and backfill its 14 nights")
-    demo.add_argument("--out", type=Path, default=Path("out/demo"), help="output root (default out/demo)")
+    demo = commands.add_parser("demo", help="generate a demo inbox (if missing) and backfill its nights")
+    demo.add_argument(
+        "--scenario", choices=("grain", "grades"), default="grain",
+        help="grain: accept/reject, 14 nights with verdicts (default); grades: four classes, 7 nights",
+    )
+    demo.add_argument("--out", type=Path, default=None, help="output root (default out/demo; out/grades for --scenario grades)")
     demo.add_argument("--inbox", type=Path, default=None, help="demo inbox (default: <out>-inbox)")
     add_ledger_commands(commands)
     return parser
@@ -72,17 +76,17 @@ def summary(decision: dict, output: Path) -> str:
         lines.append(f"  {mark} [{reason['code']}] {reason['message']}")
     mechanism = decision["mechanism"]
     if mechanism:
-        lines.append(f"  consensus: {rule_text(decision['consensus']['rule'])} (risk {decision['consensus']['risk']:.4f})")
+        lines.append(f"  consensus: {rule_text(decision['consensus']['rule'], decision.get('classes'))} (risk {decision['consensus']['risk']:.4f})")
         ratio = "n/a" if mechanism["ratio"] is None else f"{mechanism['ratio']:.3f}"
         lines.append(
             f"  {mechanism['name']}: {len(mechanism['lottery'])} entries, expected risk {mechanism['expected_risk']:.4f}, "
             f"ratio {ratio} (guarantee {mechanism['guarantee']:.3f}{'' if mechanism['guarantee_applies'] else ', not applicable'})"
         )
         for entry in mechanism["lottery"]:
-            lines.append(f"      p={entry['probability']:.3f}  {entry['source_id'] or '-':<14} {rule_text(entry['rule'])}")
+            lines.append(f"      p={entry['probability']:.3f}  {entry['source_id'] or '-':<14} {rule_text(entry['rule'], decision.get('classes'))}")
         draw = decision["draw"]
         status = "in force from tonight" if decision["route"] == "aggregate" else "would apply if approved; not in force"
-        lines.append(f"  drawn (u={draw['u']:.6f}, {status}): {draw['source_id'] or '-'}: {rule_text(draw['rule'])}")
+        lines.append(f"  drawn (u={draw['u']:.6f}, {status}): {draw['source_id'] or '-'}: {rule_text(draw['rule'], decision.get('classes'))}")
     flagged = [f"{s['source_id']} ({', '.join(s['flags'])})" for s in decision["sources"] if s["flags"]]
     lines.append(f"  flagged: {'; '.join(flagged) if flagged else 'none'}")
     for q in decision["quarantined"]:
@@ -174,17 +178,19 @@ def run(argv: Sequence[str] | None = None) -> int:
         return run_ledger_command(args)
     from truthsieve.pipeline import demo
 
-    inbox = args.inbox or args.out.with_name(args.out.name + "-inbox")
-    check_out_location(inbox, args.out)
-    if not demo.batch_present(inbox, demo.night_dates()[-1]):
+    out = args.out or demo.DEFAULT_OUT[args.scenario]
+    story = demo.scenario(args.scenario)
+    inbox = args.inbox or out.with_name(out.name + "-inbox")
+    check_out_location(inbox, out)
+    if not demo.batch_present(inbox, story.night_dates()[-1]):
         print(f"generating the demo inbox in {inbox}")
-        demo.generate_inbox(inbox)
-    dates = demo.night_dates()
-    code = backfill(inbox, dates, None, args.out, 600.0, config=demo.demo_config())
-    if code == EXIT_OK:
+        story.generate_inbox(inbox)
+    dates = story.night_dates()
+    code = backfill(inbox, dates, None, out, 600.0, config=story.demo_config())
+    if code == EXIT_OK and args.scenario == "grain":
         from truthsieve.pipeline.ledger_cli import finish_demo
 
-        finish_demo(args.out, inbox)
+        finish_demo(out, inbox)
     return code
 
 

@@ -190,6 +190,11 @@ class Config(_Strict):
             raise ValueError(f"sources listed twice: {duplicates}")
         if self.mechanism.startswith("two_rule") and self.rule_class.kind != "constant":
             raise ValueError(f"mechanism {self.mechanism!r} needs rule_class.kind 'constant'")
+        if self.mechanism.startswith("two_rule") and self.classes is not None and len(self.classes) > 2:
+            raise ValueError(
+                f"mechanism {self.mechanism!r} chooses between exactly two rules, but classes has {len(self.classes)} "
+                "(so the constant class has as many rules); choose a dictator mechanism"
+            )
         if self.mechanism == "erm" and self.routing.mode == "strategy_proof":
             raise ValueError(
                 "mechanism 'erm' is not strategy-proof and cannot be used with routing.mode 'strategy_proof'; "

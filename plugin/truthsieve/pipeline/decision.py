@@ -144,6 +144,7 @@ class Decision:
     draw_revision: int
     earlier_draws: tuple[dict, ...]
     tool_version: str
+    classes: tuple[str, ...] | None = None  # the configured class names (index order); not written when unset
 
     @property
     def flagged(self) -> list[str]:
@@ -198,6 +199,7 @@ def build_decision(
         quarantined=tuple(quarantined), errors=tuple(intake.errors), notes=tuple(intake.notes),
         absent=absent_sources(intake, config), config_sha256=config.digest(), draw_revision=revision,
         earlier_draws=tuple(dict(d) for d in earlier_draws), tool_version=__version__,
+        classes=None if config.classes is None else tuple(config.classes),
     )
     if analysis is None:
         return Decision(
@@ -237,8 +239,16 @@ def _plain(value):
 
 
 def decision_json(decision: Decision) -> dict:
-    """The contract's ``decision.json`` (plus our own extensions) as plain data: the one serialiser."""
-    return _plain(decision)
+    """The contract's ``decision.json`` (plus our own extensions) as plain data: the one serialiser.
+
+    ``classes`` (the class names, in index order, so rule ``label``/``above``/``below``
+    index into it) is written only when the configuration names classes: a binary
+    decision keeps its bytes.
+    """
+    plain = _plain(decision)
+    if plain["classes"] is None:
+        del plain["classes"]
+    return plain
 
 
 def dumps_rule(rule: Mapping) -> str:

@@ -207,3 +207,16 @@ def record_demo_verdicts(out: str | Path, at: str) -> list[str]:
     record_verdict(out, late[0].date, True, REVIEWER, APPROVE_NOTE, at)
     record_verdict(out, storm[-1].date, False, REVIEWER, REJECT_NOTE, at)
     return [f"{late[0].date}: approved by {REVIEWER} ({APPROVE_NOTE})", f"{storm[-1].date}: rejected by {REVIEWER} ({REJECT_NOTE})"]
+
+
+#: ``truthsieve demo --scenario NAME``: the module of each scenario and its default output root.
+SCENARIOS = {"grain": "truthsieve.pipeline.demo", "grades": "truthsieve.pipeline.demo_grades"}
+DEFAULT_OUT = {"grain": Path("out/demo"), "grades": Path("out/grades")}
+
+
+def scenario(name: str):
+    """The module of a demo scenario: ``night_dates()``, ``generate_inbox(inbox)``, ``demo_config()``.
+    Only ``grain`` (this module) has verdict nights and a late delivery."""
+    import importlib
+
+    return importlib.import_module(SCENARIOS[name])

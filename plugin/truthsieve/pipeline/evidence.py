@@ -8,7 +8,7 @@ measures, used by the report, the index and the alerts (the code stays visible b
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 
 from truthsieve.pipeline.config import RoutingPolicy
 
@@ -36,11 +36,15 @@ def _shift(now: float | None, before: float | None) -> str:
     return f"{way} from {_pct(before)} over its earlier nights to {_pct(now)} tonight"
 
 
-def flag_sentence(code: str, source: Mapping, policy: RoutingPolicy, past: Mapping | None = None) -> str:
+def flag_sentence(code: str, source: Mapping, policy: RoutingPolicy, past: Mapping | None = None, classes: Sequence[str] | None = None) -> str:
     """One flag of one source: plain words first, the statistic's name second, the value
     beside its limit and the direction that trips it. ``past`` may hold the source's
-    pooled earlier ``positive_rate`` and ``disagreement`` (for the direction of a shift)."""
+    pooled earlier ``positive_rate`` and ``disagreement`` (for the direction of a shift).
+    ``classes`` are the decision's class names; with more than two, "balanced accuracy"
+    is the macro-averaged recall and the "positive rate" the share of labels other than
+    class 0 (see :mod:`truthsieve.core.source_checks`)."""
     past = past or {}
+    many = classes is not None and len(classes) > 2
     if code == "rule_shaped":
         return (
             f"these grades follow a single cut almost exactly: a rule of the class misses only {_pct(source['own_best_risk'])} of them "
@@ -53,6 +57,12 @@ def flag_sentence(code: str, source: Mapping, policy: RoutingPolicy, past: Mappi
         return (
             f"these grades differ from the shared fit on {_pct(source['disagreement'])} of lots, above the limit of "
             f"{_pct(policy.max_disagreement)} ({100 * policy.confidence:g} % range {_pct(low)} to {_pct(high)}) [statistic: disagreement with the consensus rule, Wilson interval]"
+        )
+    if code == "low_reliability" and many:
+        return (
+            f"estimated from all members' grades together, these grades are right on {_pct(source['balanced_accuracy'])} of lots "
+            f"(mean over the {len(classes)} classes of the share of each class's lots graded right), below the minimum of "
+            f"{_pct(policy.min_balanced_accuracy)} [statistic: Dawid-Skene macro-averaged recall]"
         )
     if code == "low_reliability":
         return (
@@ -76,8 +86,9 @@ def flag_sentence(code: str, source: Mapping, policy: RoutingPolicy, past: Mappi
             f"at or above the limit of {policy.max_pull:g} [statistic: pull on the consensus fit]"
         )
     if code == "drift_positive_rate":
+        what = f"graded other than {classes[0]} (class 0)" if many else "accepted"
         return (
-            f"the share of lots accepted moved: {_shift(source.get('positive_rate'), past.get('positive_rate'))}; adjusted p = "
+            f"the share of lots {what} moved: {_shift(source.get('positive_rate'), past.get('positive_rate'))}; adjusted p = "
             f"{source['drift_positive_rate_p']:.2g}, below {policy.drift_alpha:g} [statistic: two-proportion z-test, Holm-adjusted]"
         )
     if code == "drift_disagreement":
@@ -115,6 +126,10 @@ FIXES = {
     "folder_holds_no_labels": "put the grades file (*.parquet) into the folder",
     "misnamed_label_file": "name the grades file *.parquet",
     "link_outside_inbox": "deliver the file itself, not a link",
+    # K classes (configuration key classes): these codes are the rules' own names
+    "unknown_class_name": "write each label as one of the configured class names, spelt exactly, or as its class index",
+    "class_index_out_of_range": "write class indices 0..K-1 of the configured classes",
+    "rule_class_out_of_range": "the platform must write listed rule columns as class indices 0..K-1",
 }
 
 

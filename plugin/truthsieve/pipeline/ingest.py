@@ -35,6 +35,7 @@ import pyarrow as pa
 from truthsieve.core.labels import id_array
 from truthsieve.core.rules import RULE_COLUMN_PREFIX
 from truthsieve.pipeline import layout
+from truthsieve.pipeline.classes import BINARY, ClassAlphabet, decode_rule_column
 from truthsieve.pipeline.label_files import duplicate_errors, id_errors, is_string, validate_labels
 from truthsieve.pipeline.layout import ITEMS_FILE, display, inside, relative, sha256
 from truthsieve.pipeline.records import ErrorRecord, FileCheck, InputFile, parse, quarantine_bytes, row_errors
@@ -54,7 +55,7 @@ def _is_number(kind: pa.DataType) -> bool:
     return pa.types.is_integer(kind) or pa.types.is_floating(kind) or pa.types.is_decimal(kind)
 
 
-def _schema_errors(relative_path: str, schema: pa.Schema, features: Iterable[str], listed: bool) -> list[ErrorRecord]:
+def _schema_errors(relative_path: str, schema: pa.Schema, features: Iterable[str], listed: bool, named: bool = False) -> list[ErrorRecord]:
     errors = []
     if "item_id" not in schema.names:
         errors.append(ErrorRecord(relative_path, None, "item_id", "missing_column", "required column item_id is missing"))
@@ -71,7 +72,7 @@ def _schema_errors(relative_path: str, schema: pa.Schema, features: Iterable[str
         if name == "item_id":
             continue
         if name.startswith(RULE_COLUMN_PREFIX):
-            if not pa.types.is_boolean(kind):
+            if not named and not pa.types.is_boolean(kind):  # named classes: decode_rule_column checks the type
                 errors.append(ErrorRecord(relative_path, None, name, "wrong_type", f"rule column must be bool, not {kind}"))
         elif not _is_number(kind):
             errors.append(ErrorRecord(relative_path, None, name, "wrong_type", f"feature columns must be numeric, not {kind}"))
@@ -99,7 +100,8 @@ def _weight_errors(relative_path: str, weights: np.ndarray) -> list[ErrorRecord]
 
 
 def validate_items(
-    inbox: str | Path, batch_date: str, features: Iterable[str] = (), listed: bool = False, kind: str | None = None
+    inbox: str | Path, batch_date: str, features: Iterable[str] = (), listed: bool = False, kind: str | None = None,
+    classes: ClassAlphabet = BINARY,
 ) -> FileCheck:
     """Validate ``items.parquet``: unique string ids without control characters, finite
     numeric features within the numeric domain, ``item_weight`` within the numeric
@@ -107,6 +109,9 @@ def validate_items(
 
     :param kind: the rule class kind; with ``threshold`` (the default when features are
         given and ``listed`` is false) every feature being constant is an error.
+    :param classes: the configuration's class alphabet. When ``classes`` is configured,
+        ``rule__*`` columns hold class indices (bool too when K = 2) and are checked by
+        :func:`~truthsieve.pipeline.classes.decode_rule_column`; without it they are bool.
     """
     inbox, features = Path(inbox), list(features)
     scan = layout.scan_batch(inbox, batch_date)
@@ -124,7 +129,13 @@ def validate_items(
         check.errors.append(error)
         return check
     errors = check.errors
-    errors += _schema_errors(name, table.schema, features, listed)
+    named = classes.names is not None
+    errors += _schema_errors(name, table.schema, features, listed, named)
+    rule_errors = {
+        column: decode_rule_column(name, table.column(column), column, classes)[1]
+        for column in table.schema.names if named and column.startswith(RULE_COLUMN_PREFIX)
+    }
+    errors += [e for found in rule_errors.values() for e in found if e.rule == "wrong_type"]
     if errors:
         return check
 
@@ -153,7 +164,9 @@ def validate_items(
     if "item_weight" in frame.columns:
         errors += _weight_errors(name, frame["item_weight"].to_numpy(dtype=np.float64, na_value=np.nan))
     for column in frame.columns:
-        if column.startswith(RULE_COLUMN_PREFIX):
+        if column in rule_errors:
+            errors += rule_errors[column]  # null_rule_value, rule_class_out_of_range
+        elif column.startswith(RULE_COLUMN_PREFIX):
             errors += row_errors(name, np.flatnonzero(frame[column].isna().to_numpy()), column, "null_rule_value", "rule value is null")
     if not errors:
         check.table = frame
@@ -174,17 +187,20 @@ def validate_source(
     registry: Mapping[str, object],
     item_ids: pd.Index | pa.Array | None,
     item_weights: np.ndarray | None = None,
+    classes: ClassAlphabet = BINARY,
 ) -> FileCheck:
     """Validate every Parquet file of one source folder.
 
     A source is valid only when all its files are; its labels are returned as the long
-    table (``item_id``, ``source_id``, ``label``) with labels as int8 0/1. An item
+    table (``item_id``, ``source_id``, ``label``) with labels as class indices (int8; int16
+    when K > 127), decoded as ``classes`` allows (:mod:`truthsieve.pipeline.classes`). An item
     labelled twice, in one file or across two, is a ``duplicate_label`` naming both places.
 
     :param item_ids: the items table's ids (any form :func:`~truthsieve.core.labels.id_array`
         takes; pass an Arrow array to avoid converting it per source).
     :param item_weights: the items' weights aligned with ``item_ids``; when given, a
         source whose labelled items all weigh 0 is an error (``no_positive_weight``).
+    :param classes: the configuration's class alphabet (``config.class_alphabet``).
     """
     inbox, folder = Path(inbox), Path(folder)
     item_ids = None if item_ids is None else id_array(item_ids)
@@ -222,7 +238,7 @@ def validate_source(
         if error:
             check.errors.append(error)
             continue
-        frame, errors, found = validate_labels(name, table, item_ids)
+        frame, errors, found = validate_labels(name, table, item_ids, classes)
         check.errors += errors
         if frame is not None:
             frames.append(frame)

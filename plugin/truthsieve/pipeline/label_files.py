@@ -12,6 +12,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from truthsieve.core.labels import id_array
+from truthsieve.pipeline.classes import BINARY, ClassAlphabet, decode_labels, label_type_error
 from truthsieve.pipeline.records import MAX_ROWS_PER_RULE, ErrorRecord, row_errors
 
 LABEL_COLUMNS = ("item_id", "label")
@@ -61,9 +62,14 @@ def duplicate_errors(frames: list[pd.DataFrame], places: list[str]) -> list[Erro
 
 
 def validate_labels(
-    relative_path: str, table: pa.Table, item_ids: pa.Array | None
+    relative_path: str, table: pa.Table, item_ids: pa.Array | None, classes: ClassAlphabet = BINARY
 ) -> tuple[pd.DataFrame | None, list[ErrorRecord], np.ndarray | None]:
-    """(labels frame, errors, each row's position in ``item_ids``): one hash join per file."""
+    """(labels frame, errors, each row's position in ``item_ids``): one hash join per file.
+
+    Labels are decoded to class indices by :func:`~truthsieve.pipeline.classes.decode_labels`
+    (indices, names or bool as ``classes`` allows); with the binary default the records are
+    those of the two-class checks (``label must be 0 or 1``).
+    """
     errors: list[ErrorRecord] = []
     schema = table.schema
     for name in LABEL_COLUMNS:
@@ -75,22 +81,16 @@ def validate_labels(
     if "item_id" in schema.names and not is_string(schema.field("item_id").type):
         errors.append(ErrorRecord(relative_path, None, "item_id", "wrong_type", f"item_id must be string, not {schema.field('item_id').type}"))
     if "label" in schema.names:
-        kind = schema.field("label").type
-        if not (pa.types.is_boolean(kind) or pa.types.is_integer(kind)):
-            errors.append(ErrorRecord(relative_path, None, "label", "wrong_type", f"label must be bool or integer 0/1, not {kind}"))
+        wrong = label_type_error(relative_path, schema.field("label").type, classes)
+        errors += [wrong] if wrong else []
     if errors:
         return None, errors, None
 
     errors += id_errors(relative_path, table.column("item_id"))
     # Ids stay in Arrow: joined by a hash join, never one Python string per row.
     ids = id_array(table.column("item_id"))
-    raw = pd.Series(table.column("label").to_numpy(zero_copy_only=False))
-    errors += row_errors(relative_path, np.flatnonzero(raw.isna().to_numpy()), "label", "null_label", "label is null")
-    numeric = raw.astype("float64")
-    errors += row_errors(
-        relative_path, np.flatnonzero(raw.notna().to_numpy() & ~numeric.isin([0.0, 1.0]).to_numpy()),
-        "label", "label_out_of_range", "label must be 0 or 1",
-    )
+    labels, label_errors = decode_labels(relative_path, table.column("label"), classes)
+    errors += label_errors
     found = None
     if item_ids is not None:
         joined = pc.index_in(ids, value_set=item_ids)
@@ -100,4 +100,4 @@ def validate_labels(
         return None, errors, None
     if item_ids is not None:
         found = joined.to_numpy(zero_copy_only=False)
-    return pa.table({"item_id": ids, "label": numeric.to_numpy().astype(np.int8)}).to_pandas(), [], found
+    return pa.table({"item_id": ids, "label": labels}).to_pandas(), [], found

@@ -71,13 +71,13 @@ def item_index(items: FileCheck) -> ItemIndex | None:
 def validate_items_at(inbox: Path, batch_date: str, config: Config) -> FileCheck:
     """Validate the night's items table (local inbox) against the configured rule class."""
     kind = config.rule_class.kind
-    return ingest.validate_items(inbox, batch_date, config.rule_class.features, kind == "listed", kind)
+    return ingest.validate_items(inbox, batch_date, config.rule_class.features, kind == "listed", kind, classes=config.class_alphabet)
 
 
 def validate_source_at(inbox: Path, batch_date: str, folder: str, config: Config, index: ItemIndex | None) -> FileCheck:
     """Validate one source folder (local inbox) against the items index."""
     ids, weights = (None, None) if index is None else (index.ids, index.weights)
-    return ingest.validate_source(inbox, batch_dir(inbox, batch_date) / folder, config.registry, ids, weights)
+    return ingest.validate_source(inbox, batch_dir(inbox, batch_date) / folder, config.registry, ids, weights, classes=config.class_alphabet)
 
 
 # ---- the steps ----

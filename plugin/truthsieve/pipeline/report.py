@@ -37,7 +37,7 @@ def _plain_reasons(decision: Mapping) -> str:
 def summary_box(decision: Mapping, before: Mapping | None, policy=None) -> str:
     """Four sentences: decided, in force, next step, who pulled."""
     date, route, drawn = decision["batch_date"], decision["route"], decision["draw"]
-    rule = rule_text(drawn["rule"]) if drawn else None
+    rule = rule_text(drawn["rule"], decision.get('classes')) if drawn else None
     who = (drawn or {}).get("source_id") or "a rule lottery"
     if route == "aggregate":
         decided = f"Aggregated: the strategy-proof lottery drew {e(who)}'s rule, <strong>{e(rule)}</strong>, and published it."
@@ -50,7 +50,7 @@ def summary_box(decision: Mapping, before: Mapping | None, policy=None) -> str:
         if before is None:
             in_force = "Rule in force now: unchanged by this night (see <code>in_force.json</code> or <code>truthsieve in-force --out OUT</code>)."
         elif before.get("rule"):
-            in_force = f"Rule in force now: <strong>{e(rule_text(before['rule']))}</strong>, since {e(before['since'])}; this night leaves it unchanged until a verdict."
+            in_force = f"Rule in force now: <strong>{e(rule_text(before['rule'], decision.get('classes')))}</strong>, since {e(before['since'])}; this night leaves it unchanged until a verdict."
         else:
             in_force = "Rule in force now: none (no night aggregated or approved yet)."
         step = f"A reviewer records a verdict: <code>{e(verdict_command(date))}</code> (OUT is the folder holding index.html)."
@@ -65,7 +65,7 @@ def summary_box(decision: Mapping, before: Mapping | None, policy=None) -> str:
     if sources:
         top = max(sources, key=lambda s: s.get("pull") or 0.0)
         limit = getattr(policy, "max_pull", None)
-        consensus = rule_text(decision["consensus"]["rule"])
+        consensus = rule_text(decision["consensus"]["rule"], decision.get('classes'))
         if "pulls_fit" in top["flags"]:
             pulled = (
                 f"{e(top['source_id'])} pulled the fit most: pull <span id='top-pull'>{f(top['pull'])}</span>"
@@ -98,7 +98,7 @@ def reasons_by_source(decision: Mapping, policy=None) -> str:
         source = by_id.get(key)
         if source is not None and policy is not None and source["flags"]:
             chips = "".join(chip(FLAG_NAMES.get(c, c), title=c) for c in source["flags"])
-            words = "<br>".join(e(flag_sentence(c, source, policy)) for c in source["flags"])
+            words = "<br>".join(e(flag_sentence(c, source, policy, classes=decision.get('classes'))) for c in source["flags"])
             other = [r for r in reasons if r["code"] not in ("source_noted", "source_flagged")]
             chips += "".join(chip(r["code"]) for r in other)
             words += "".join(f"<br>{e(r['message'])}" for r in other)
@@ -123,8 +123,8 @@ def _rules(decision: Mapping, analysis) -> str:
         table(
             ["", "rule", "global risk", "status"],
             [
-                [f"drawn by {e(mechanism['name'])} ({e(drawn['source_id'] or 'rule lottery')})", e(rule_text(drawn["rule"])), f(mechanism["lottery"][drawn["index"]]["risk"]), e(status)],
-                ["plain ERM (the consensus fit; counterfactual)", e(rule_text(consensus["rule"])), f(consensus["risk"]), "not published"],
+                [f"drawn by {e(mechanism['name'])} ({e(drawn['source_id'] or 'rule lottery')})", e(rule_text(drawn["rule"], decision.get('classes'))), f(mechanism["lottery"][drawn["index"]]["risk"]), e(status)],
+                ["plain ERM (the consensus fit; counterfactual)", e(rule_text(consensus["rule"], decision.get('classes'))), f(consensus["risk"]), "not published"],
             ],
             text_columns=(0, 1, 3),
         )
@@ -133,17 +133,33 @@ def _rules(decision: Mapping, analysis) -> str:
     if plotted is not None and analysis is not None:
         feature = next(x for x in analysis.rule_class.features if x.name == plotted["feature"])
         m = analysis.matrix
-        share = (m.labels * m.labelled).sum(axis=0) / np.maximum(m.labelled.sum(axis=0), 1)
         cuts = {
             name: (rule["cut"] if rule["kind"] == "threshold" and rule["feature"] == feature.name else None)
             for name, rule in (("consensus fit", consensus["rule"]), ("drawn", drawn["rule"]))
         }
+        names = decision.get("classes")
+        if names is not None and len(names) > 2:
+            parts.append(_class_figure(m, feature, cuts, names))
+            return "".join(parts) + "</section>"
+        share = (m.labels * m.labelled).sum(axis=0) / np.maximum(m.labelled.sum(axis=0), 1)
         parts.append(
             f"<figure id='feature-plot'>{feature_plot(feature.values, share, feature.name, cuts)}<figcaption>Each dot is a lot (or a bin of lots, "
             f"as the chart says) at its {e(feature.name)} value, placed at the share of sources that accepted it; blue dots are accepted by at least half, "
             "amber ones by fewer. The solid line is the plain ERM fit's cut, the dashed purple one the drawn rule's cut.</figcaption></figure>"
         )
     return "".join(parts) + "</section>"
+
+
+def _class_figure(m, feature, cuts: Mapping, names) -> str:
+    from truthsieve.pipeline.report_charts import class_plot, majority_classes
+
+    majority, share = majority_classes(m.labels, m.labelled, len(names))
+    return (
+        f"<figure id='feature-plot'>{class_plot(feature.values, majority, share, feature.name, cuts, names)}<figcaption>Each dot is a lot "
+        f"(or a group of lots, as the chart says) at its {e(feature.name)} value, placed at the share of its sources that gave it its majority "
+        "class and coloured by that class (the legend names every class, dark to light in class order; a tie goes to the lower class). "
+        "The solid line is the plain ERM fit's cut, the dashed purple one the drawn rule's cut.</figcaption></figure>"
+    )
 
 
 def _sources(decision: Mapping, recent, policy) -> str:
@@ -193,7 +209,7 @@ def _lottery(decision: Mapping) -> str:
     parts.append(
         table(
             ["entry", "source", "probability", "rule", "global risk"],
-            [[str(k), e(x["source_id"] or "&ndash;"), f(x["probability"], 6), e(rule_text(x["rule"])), f(x["risk"])] for k, x in enumerate(mechanism["lottery"])],
+            [[str(k), e(x["source_id"] or "&ndash;"), f(x["probability"], 6), e(rule_text(x["rule"], decision.get('classes'))), f(x["risk"])] for k, x in enumerate(mechanism["lottery"])],
             text_columns=(1, 3),
         )
     )
@@ -218,7 +234,7 @@ def _lottery(decision: Mapping) -> str:
         parts.append(
             table(
                 ["earlier revision", "u", "drawn source", "rule", "route"],
-                [[e(d["revision"]), e(d["u"]), e(d["source_id"]) or "&ndash;", e(rule_text(d["rule"])), e(d["route"])] for d in earlier],
+                [[e(d["revision"]), e(d["u"]), e(d["source_id"]) or "&ndash;", e(rule_text(d["rule"], decision.get('classes'))), e(d["route"])] for d in earlier],
                 text_columns=(2, 3, 4),
             )
         )

@@ -79,11 +79,17 @@ def pull_chart(sources: Sequence[Mapping], max_pull: float | None) -> str:
     return f"<div class='pair'><div>{chart}</div><div id='pull-legend'>{legend}</div></div>"
 
 
-def feature_plot(values: np.ndarray, accept_share: np.ndarray, feature: str, cuts: Mapping[str, float | None]) -> str:
-    """The share of sources accepting each lot (y) at its feature value (x), with the cuts.
-    Above :data:`MAX_POINTS` lots, the lots are put in :data:`BINS` equal-width bins and each
-    bin shows its mean share (dot area grows with the bin's count)."""
-    values = np.asarray(values, dtype=np.float64)
+def _cut_lines(parts: list[str], sx, cuts: Mapping[str, float | None]) -> None:
+    styles = {"consensus fit": (P["ink"], ""), "drawn": (P["cut"], "stroke-dasharray='6 4'")}
+    for row, (name, cut) in enumerate(cuts.items()):
+        if cut is None:
+            continue
+        colour, dash = styles[name]
+        parts.append(f"<line x1='{sx(cut):.1f}' y1='{PAD - 4}' x2='{sx(cut):.1f}' y2='{H - PAD}' stroke='{colour}' stroke-width='2' {dash}/>")
+        parts.append(f"<text x='{sx(cut) + 4:.1f}' y='{PAD + 8 + 14 * row}' font-size='11' fill='{colour}'>{e(name)} cut {cut:g}</text>")
+
+
+def _axes(values: np.ndarray):
     low, high = float(values.min()), float(values.max())
     span = (high - low) or 1.0
 
@@ -93,11 +99,22 @@ def feature_plot(values: np.ndarray, accept_share: np.ndarray, feature: str, cut
     def sy(v):
         return H - PAD - v * (H - 2 * PAD)
 
+    return low, span, sx, sy
+
+
+def feature_plot(values: np.ndarray, accept_share: np.ndarray, feature: str, cuts: Mapping[str, float | None]) -> str:
+    """The share of sources accepting each lot (y) at its feature value (x), with the cuts.
+    Above :data:`MAX_POINTS` lots, the lots are put in :data:`BINS` equal-width bins and each
+    bin shows its mean share (dot area grows with the bin's count)."""
+    values = np.asarray(values, dtype=np.float64)
+    low, span, sx, sy = _axes(values)
+
     parts = _frame(
         feature, "share of sources accepting",
         [(sx(low + span * k / 4), f"{low + span * k / 4:.1f}") for k in range(5)],
         [(sy(k / 4), f"{k / 4:.2f}") for k in range(5)],
     )
+    high = float(values.max())
     if len(values) > MAX_POINTS:
         edges = np.linspace(low, high, BINS + 1)
         which = np.clip(np.searchsorted(edges, values, side="right") - 1, 0, BINS - 1)
@@ -113,14 +130,55 @@ def feature_plot(values: np.ndarray, accept_share: np.ndarray, feature: str, cut
         colour = P["calm"] if share >= 0.5 else P["heed"]
         parts.append(f"<circle cx='{sx(v):.1f}' cy='{sy(share):.1f}' r='{r:.1f}' fill='{colour}' fill-opacity='0.7'/>")
     parts.append(f"<text x='{PAD + 4}' y='{PAD - 12}' font-size='10' id='feature-plot-note'>{e(note)}</text>")
-    styles = {"consensus fit": (P["ink"], ""), "drawn": (P["cut"], "stroke-dasharray='6 4'")}
-    for row, (name, cut) in enumerate(cuts.items()):
-        if cut is None:
-            continue
-        colour, dash = styles[name]
-        parts.append(f"<line x1='{sx(cut):.1f}' y1='{PAD - 4}' x2='{sx(cut):.1f}' y2='{H - PAD}' stroke='{colour}' stroke-width='2' {dash}/>")
-        parts.append(f"<text x='{sx(cut) + 4:.1f}' y='{PAD + 8 + 14 * row}' font-size='11' fill='{colour}'>{e(name)} cut {cut:g}</text>")
+    _cut_lines(parts, sx, cuts)
     return _svg(parts, f"{feature}: share of sources accepting, with the cuts")
+
+
+def majority_classes(labels: np.ndarray, labelled: np.ndarray, n_classes: int) -> tuple[np.ndarray, np.ndarray]:
+    """Per lot: (its majority class, the share of its sources giving that class); a tie goes
+    to the lowest class index, a lot nobody labelled is class 0 with share 0."""
+    counts = np.stack([((labels == k) & labelled).sum(axis=0) for k in range(n_classes)])
+    return counts.argmax(axis=0), counts.max(axis=0) / np.maximum(labelled.sum(axis=0), 1)
+
+
+def class_plot(values: np.ndarray, majority: np.ndarray, share: np.ndarray, feature: str, cuts: Mapping[str, float | None], names: Sequence[str]) -> str:
+    """K classes: each lot (x: its feature value) at the share of its sources that gave its
+    majority class (y), coloured by that class (:func:`class_colours`), with a legend naming
+    every class and the cuts. Above :data:`MAX_POINTS` lots a dot is a (bin, class) group."""
+    from truthsieve.pipeline.class_colours import class_colours
+
+    values, majority = np.asarray(values, dtype=np.float64), np.asarray(majority)
+    colours, k = class_colours(len(names)), len(names)
+    low, span, sx, sy = _axes(values)
+    parts = _frame(
+        feature, "share of sources giving the majority class",
+        [(sx(low + span * q / 4), f"{low + span * q / 4:.1f}") for q in range(5)],
+        [(sy(q / 4), f"{q / 4:.2f}") for q in range(5)],
+    )
+    if len(values) > MAX_POINTS:
+        edges = np.linspace(low, low + span, BINS + 1)
+        group = np.clip(np.searchsorted(edges, values, side="right") - 1, 0, BINS - 1) * k + majority
+        counts = np.bincount(group, minlength=BINS * k)
+        sums = np.bincount(group, weights=share, minlength=BINS * k)
+        centres = (edges[:-1] + edges[1:]) / 2
+        points = [(centres[g // k], sums[g] / counts[g], g % k, 1.5 + 3.5 * np.sqrt(counts[g] / counts.max())) for g in np.flatnonzero(counts)]
+        note = f"{len(values)} lots in {len(points)} (bin, class) groups, bins of width {span / BINS:.3g}"
+    else:
+        points = [(v, s, c, 2.6) for v, s, c in zip(values, share, majority)]
+        note = f"{len(values)} lots, one dot each"
+    for v, y, c, r in points:
+        parts.append(
+            f"<circle cx='{sx(v):.1f}' cy='{sy(y):.1f}' r='{r:.1f}' fill='{colours[int(c)]}' fill-opacity='0.8' stroke='{P['ink']}' stroke-width='0.4'/>"
+        )
+    parts.append(f"<text x='{PAD + 4}' y='{PAD - 12}' font-size='10' id='feature-plot-note'>{e(note)}</text>")
+    legend_x = PAD + 8  # bottom left: a majority share is at least 1/K, so that corner is mostly empty
+    parts.append(f"<rect x='{legend_x - 4}' y='{H - PAD - 14 * k - 18}' width='104' height='{14 * k + 8}' fill='{P['panel']}' stroke='{P['line']}'/>")
+    for row, (name, colour) in enumerate(zip(names, colours)):
+        y = H - PAD - 14 * (k - row) - 4
+        parts.append(f"<rect x='{legend_x}' y='{y - 8}' width='10' height='10' fill='{colour}' stroke='{P['ink']}' stroke-width='0.6'/>")
+        parts.append(f"<text x='{legend_x + 14}' y='{y + 1}' font-size='10' class='class-legend'>{e(name)} ({row})</text>")
+    _cut_lines(parts, sx, cuts)
+    return _svg(parts, f"{feature}: majority class of each lot and its share, with the cuts")
 
 
 def history_strip(recent: Sequence[Mapping], decision: Mapping) -> str:

@@ -80,15 +80,25 @@ def f(value, digits: int = 4) -> str:
     return "n/a" if value is None else f"{value:.{digits}f}"
 
 
-def rule_text(rule: Mapping | None) -> str:
+def class_text(index: int, classes: Sequence[str] | None = None) -> str:
+    """A class in words: its configured name; unnamed, 0/1 read as reject/accept (the binary default)."""
+    if classes is not None:
+        return f"{classes[index]} ({index})"
+    return {0: "reject", 1: "accept"}.get(int(index), f"class {index}")
+
+
+def rule_text(rule: Mapping | None, classes: Sequence[str] | None = None) -> str:
+    """One rule in words; ``classes`` are the decision's class names (``decision.get("classes")``)."""
     if not rule:
         return "none"
     if rule["kind"] == "constant":
-        return "accept every lot" if rule["label"] else "reject every lot"
+        if classes is None and rule["label"] in (0, 1):
+            return "accept every lot" if rule["label"] else "reject every lot"
+        return f"{class_text(rule['label'], classes)} for every lot"
     if rule["kind"] == "threshold":
-        above = "accept" if rule["above"] else "reject"
-        below = "reject" if rule["above"] else "accept"
-        return f"{rule['feature']} > {rule['cut']:g}: {above}; otherwise {below}"
+        above = rule["above"]
+        below = rule.get("below", 1 - above)  # decisions written before K classes have no below
+        return f"{rule['feature']} > {rule['cut']:g}: {class_text(above, classes)}; otherwise {class_text(below, classes)}"
     return f"listed rule {rule['name']}"
 
 

@@ -72,13 +72,13 @@ def render_index(decisions: Sequence[Mapping], ledger_entries: Sequence[Mapping]
         rows.append(
             [
                 f"<a href='batch_date={date}/report.html'>{date}</a>", route_badge(d["route"]), verdict_cell(ledger_nights.get(d["batch_date"])),
-                e(rule_text(then["rule"])), top_pull(d), f(ratio, 3), _flags_cell(d),
+                e(rule_text(then["rule"], d.get("classes"))), top_pull(d), f(ratio, 3), _flags_cell(d),
             ]
         )
     if now["rule"]:
         how = now["event"] or {}
         by = f", approved by {e(how['by'])}" if how.get("kind") == "verdict" else ""
-        in_force = f"Rule in force now: <strong>{e(rule_text(now['rule']))}</strong> since {e(now['since'])}{by} (ledger line {e(now['seq'])})."
+        in_force = f"Rule in force now: <strong>{e(rule_text(now['rule'], decisions[-1].get('classes') if decisions else None))}</strong> since {e(now['since'])}{by} (ledger line {e(now['seq'])})."
     else:
         in_force = "Rule in force now: <strong>none</strong> (no night aggregated or approved yet)."
     told = "".join(f"<li>{e(line)}</li>" for line in story(decisions, ledger_entries))

@@ -16,14 +16,14 @@ def in_force_section(decision: Mapping, before: Mapping | None) -> str:
     if before is None:
         was = "not known to this report: see in_force.json"
     else:
-        was = f"{rule_text(previous)} (since {before['since']})" if previous else "none (no night aggregated or approved yet)"
-    after = rule_text(drawn) if decision["route"] == "aggregate" else f"unchanged until a verdict: {was}"
+        was = f"{rule_text(previous, decision.get('classes'))} (since {before['since']})" if previous else "none (no night aggregated or approved yet)"
+    after = rule_text(drawn, decision.get('classes')) if decision["route"] == "aggregate" else f"unchanged until a verdict: {was}"
     parts = [
         "<h2 id='in-force'>Rule in force</h2>",
         _table(["", "rule"], [["before this night", _e(was)], ["after this night", _e(after)]], text_columns=(0, 1)),
     ]
     if decision["route"] == "review":
-        approve = f"approve: the drawn rule ({rule_text(drawn)}), which would apply if approved, goes in force" if drawn else "approve: not possible, no rule was drawn"
+        approve = f"approve: the drawn rule ({rule_text(drawn, decision.get('classes'))}), which would apply if approved, goes in force" if drawn else "approve: not possible, no rule was drawn"
         command = f"truthsieve verdict --out OUT --date {date} (--approve | --reject) --by NAME --note TEXT"
         parts.append(
             f"<p id='decide'>The reviewer decides: {_e(approve)}; reject: the rule in force stays. "

@@ -52,7 +52,7 @@ def story(decisions: Sequence[Mapping], ledger_entries: Sequence[Mapping] = ()) 
             shaped = [x["batch_date"] for x, y in pulled if "rule_shaped" in y["flags"]]
             lines.append(
                 f"{source}'s grades made the difference to the plain ERM fit on {_nights(len(pulled))} ({spans([x['batch_date'] for x, _ in pulled])}): "
-                f"on {d['batch_date']}, with them plain ERM would publish {rule_text(d['consensus']['rule'])}, without them {rule_text(s['others_rule'])}; "
+                f"on {d['batch_date']}, with them plain ERM would publish {rule_text(d['consensus']['rule'], d.get('classes'))}, without them {rule_text(s['others_rule'], d.get('classes'))}; "
                 f"its pull there (the error its grades add for the other members) was {s['pull']:.4f}, its largest."
                 + (f" Its grades matched a single cut on {_nights(len(shaped))} of them." if shaped else "")
                 + f" The lottery drew its rule on {_nights(len(drawn))} of them: its chance of being drawn follows its registry weight, not its grades."
@@ -102,5 +102,5 @@ def story(decisions: Sequence[Mapping], ledger_entries: Sequence[Mapping] = ()) 
         lines.append(f"{d['batch_date']}{revision} went to review: {why}.{verdict}")
     now = derive(ledger_entries)
     if now["rule"] is not None:
-        lines.append(f"Rule in force now: {rule_text(now['rule'])}, since {now['since']}.")
+        lines.append(f"Rule in force now: {rule_text(now['rule'], decisions[-1].get('classes'))}, since {now['since']}.")
     return lines

@@ -110,7 +110,7 @@ def route_batch(
             for flag in source.flags:
                 blocking = guarded and flag in policy.review_on_flags
                 code = "source_flagged" if blocking else "source_noted"
-                reasons.append(Reason(code, f"{source.source_id}: {FLAG_SENTENCES[flag]}", blocking, source.source_id))
+                reasons.append(Reason(code, f"{source.source_id}: {flag_sentence(flag, config)}", blocking, source.source_id))
     if demo_key:
         reasons.append(Reason("demo_draw_key", REASON_CODES["demo_draw_key"], False))
     route = REVIEW if any(r.blocking for r in reasons) else AGGREGATE
@@ -127,3 +127,15 @@ FLAG_SENTENCES = {
     "drift_positive_rate": "its accept rate moved away from its own recent history",
     "drift_disagreement": "its disagreement with the consensus moved away from its own recent history",
 }
+# with more than two classes these two read differently (core/source_checks.py: macro-averaged recall; labels other than class 0)
+FLAG_SENTENCES_K_CLASSES = {
+    "low_reliability": "Dawid-Skene macro-averaged recall (the mean over classes of the share of each class's items labelled right) is below the policy's minimum",
+    "drift_positive_rate": "its share of labels other than class 0 moved away from its own recent history",
+}
+
+
+def flag_sentence(flag: str, config: Config | None) -> str:
+    """The reason's words for a flag; K-class wording when the configuration names more than two classes."""
+    if config is not None and config.classes is not None and len(config.classes) > 2:
+        return FLAG_SENTENCES_K_CLASSES.get(flag, FLAG_SENTENCES[flag])
+    return FLAG_SENTENCES[flag]
