@@ -102,3 +102,15 @@ def test_an_unknown_scenario_is_one_line_exit_2(tmp_path):
     result = cli("demo", "--scenario", "wheat", "--out", str(tmp_path / "out"))
     assert result.returncode == 2 and len(result.stderr.strip().splitlines()) == 1
     assert not (tmp_path / "out").exists()
+
+
+def test_in_force_names_the_classes_of_the_night_that_set_the_rule(run):
+    out, _, _ = run
+    state = json.loads((out / "in_force.json").read_text())
+    result = cli("in-force", "--out", str(out), cwd=out.parent)
+    assert result.returncode == 0, result.stderr
+    rule = state["rule"]
+    # both sides of the rule in force are named, e.g. "reject (0)" and "milling (2)"
+    for k in (rule["above"], rule["below"]):
+        assert f"{CLASSES[k]} ({k})" in result.stdout
+    assert "class " not in result.stdout  # the unnamed fallback is not used

@@ -44,8 +44,8 @@ def _render(blocks: list) -> tuple[str, str]:
 def _next(decision: Mapping) -> str:
     drawn = (decision.get("draw") or {}).get("rule")
     if decision["route"] == "aggregate":
-        return f"What happens next: the night was aggregated; the drawn rule ({rule_text(drawn)}) is in force from tonight. Flags never hold a night back; the cooperative's quality team reads the evidence."
-    return "What happens next: the night awaits a reviewer's verdict; until then the rule in force stays" + (f" (the drawn rule, {rule_text(drawn)}, would apply if approved)." if drawn else ".")
+        return f"What happens next: the night was aggregated; the drawn rule ({rule_text(drawn, decision.get('classes'))}) is in force from tonight. Flags never hold a night back; the cooperative's quality team reads the evidence."
+    return "What happens next: the night awaits a reviewer's verdict; until then the rule in force stays" + (f" (the drawn rule, {rule_text(drawn, decision.get('classes'))}, would apply if approved)." if drawn else ".")
 
 
 def _footer(decision: Mapping, config: Config, report: str) -> list:

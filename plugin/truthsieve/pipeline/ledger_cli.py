@@ -76,14 +76,24 @@ def _now() -> str:
     return dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds")
 
 
-def _describe(state: dict) -> str:
+def _night_classes(out: Path, date: str) -> list[str] | None:
+    """The class names the night's decision.json names (None for binary nights or when unreadable)."""
+    from truthsieve.pipeline.outputs import batch_location
+
+    try:
+        return json.loads((batch_location(out, date) / "decision.json").read_text(encoding="utf-8")).get("classes")
+    except (OSError, ValueError):
+        return None
+
+
+def _describe(state: dict, out: Path) -> str:
     from truthsieve.pipeline.report import rule_text
 
     if state["rule"] is None:
         return "no rule in force: no night was aggregated or approved yet"
     event = state["event"]
     how = f"approved by {event['by']} at {event['at']}" if event["kind"] == "verdict" else "aggregated"
-    return f"rule in force: {rule_text(state['rule'])}\n  since night {state['since']} ({how}; ledger line {state['seq']})\n  decision sha256 {state['decision_sha256']}"
+    return f"rule in force: {rule_text(state['rule'], _night_classes(out, state['since']))}\n  since night {state['since']} ({how}; ledger line {state['seq']})\n  decision sha256 {state['decision_sha256']}"
 
 
 def finish_demo(out: Path, inbox: Path | None = None) -> None:
@@ -107,7 +117,7 @@ def finish_demo(out: Path, inbox: Path | None = None) -> None:
         print(f"  {line}")
     if inbox is not None:
         write_index(out)
-    print(_describe(verdicts.in_force(out)))
+    print(_describe(verdicts.in_force(out), out))
 
 
 def verify_out_folder(out: Path) -> list[dict]:
@@ -152,16 +162,16 @@ def run_ledger_command(args) -> int:
             raise InputError("verdict needs exactly one of --approve or --reject")
         state = verdicts.record_verdict(args.out, args.date, args.approve, args.by, args.note, _now(), args.lock_timeout)
         print(f"night {args.date}: {'approved' if args.approve else 'rejected'} by {args.by.strip()}")
-        print(_describe(state))
+        print(_describe(state, args.out))
         return 0
     if args.command == "revoke":
         state = verdicts.record_revocation(args.out, args.date, args.by, args.note, _now(), args.lock_timeout)
         print(f"night {args.date}: its rule revoked by {args.by.strip()} (human override of the mechanism)")
-        print(_describe(state))
+        print(_describe(state, args.out))
         return 0
     if args.command == "in-force":
         state = verdicts.in_force(args.out, args.as_of)
-        print(json.dumps(state, sort_keys=True, indent=2) if args.json else _describe(state))
+        print(json.dumps(state, sort_keys=True, indent=2) if args.json else _describe(state, args.out))
         return 0
     if args.command == "apply":
         from truthsieve.pipeline.apply import apply_rule
@@ -171,7 +181,7 @@ def run_ledger_command(args) -> int:
         classes = load_config(args.config).class_alphabet if args.config else None
         result = apply_rule(args.out, args.items, args.write, args.as_of, classes, args.labels)
         print(f"{result['rows']} items labelled into {result['written']}")
-        print(_describe(result))
+        print(_describe(result, args.out))
         return 0
     if args.verify:
         entries = verify_out_folder(args.out)
