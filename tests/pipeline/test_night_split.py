@@ -174,3 +174,55 @@ def test_per_source_statistics_from_work_area_codes_equal_those_from_item_ids(tm
         from_ids = analysis.source_statistics(check.table, check.source_id, of_night, 0.5)
         assert from_codes.items.tolist() == from_ids.items.tolist() and from_codes.classes.tolist() == from_ids.classes.tolist()
         assert from_codes.coverage == from_ids.coverage
+
+
+def test_a_label_outside_the_classes_in_the_work_area_is_named(tmp_path):
+    from truthsieve.exceptions import ClassIndexError
+
+    config = load_config(write_config(tmp_path / "c.yaml", rule_class={"kind": "constant"}))
+    import pandas as pd
+
+    items = pd.DataFrame({"item_id": ["b", "a"]})
+    of_night, ranks = analysis.night_items(items, config), analysis.item_ranks(items)
+    assert ranks.tolist() == [1, 0]  # row 0 ("b") sorts second
+    assert analysis.source_from_codes("lab", np.array([0, 1]), np.array([1, 0]), of_night, ranks, 1.0).classes.tolist() == [0, 1]
+    with pytest.raises(ClassIndexError, match="'lab'.*0..1"):
+        analysis.source_from_codes("lab", np.array([0, 1]), np.array([0, 2]), of_night, ranks, 1.0)
+    with pytest.raises(ClassIndexError, match="'lab'"):
+        analysis.source_from_codes("lab", np.array([0]), np.array([-1]), of_night, ranks, 1.0)
+
+
+def test_the_totals_in_the_work_area_are_the_whole_night_matrix_floats(tmp_path):
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    rng = np.random.default_rng(21)
+    names = [f"s{k}" for k in range(9)]
+    inbox = tmp_path / "inbox"
+    batch = inbox / f"batch_date={DATE}"
+    batch.mkdir(parents=True)
+    ids = [f"lot-{k:03d}" for k in rng.permutation(80)]
+    weights = np.round(rng.uniform(0.1, 3.0, 80), 2)
+    pq.write_table(pa.table({"item_id": ids, "item_weight": weights}), batch / "items.parquet")
+    for name in names:
+        keep = np.flatnonzero(rng.random(80) < 0.7)
+        write_labels(batch, name, [ids[k] for k in keep], rng.integers(0, 2, len(keep)))
+    config_path = tmp_path / "c.yaml"
+    registry = [{"source_id": n, "weight": float(w)} for n, w in zip(names, np.round(rng.uniform(0.3, 7.0, len(names)), 3))]
+    config_path.write_text(yaml.safe_dump({"rule_class": {"kind": "constant"}, "mechanism": "weighted_dictator", "sources": registry}))
+    config = load_config(config_path)
+    store = LocalStore(inbox, tmp_path / "out")
+    for folder in night.start_night(store, DATE):
+        night.validate_source(store, DATE, folder, config, night.item_index(night.check_items(store, DATE, config)))
+    night.fit_consensus(store, DATE, config)
+    totals = work_files.read_night_fit(store, DATE)[0]
+    intake = work_files.read_intake(store, DATE)
+    matrix = analysis.prepare(intake.labels, intake.items.table, config)[0]
+    assert totals.tobytes() == matrix.global_costs().tobytes()
+    # The check can fail: summed in another order, these floats differ in the last bits.
+    scrambled = np.zeros_like(totals)
+    for source in reversed(matrix.sources):
+        from truthsieve.core.statistics import add_contribution
+
+        add_contribution(scrambled, source)
+    assert scrambled.tobytes() != totals.tobytes()
