@@ -263,8 +263,10 @@ def screen_night(
     per-source analysis, which runs on a pool of ``workers`` processes when more than 1
     (None: the machine's cores for a night large enough; see :mod:`truthsieve.pipeline.source_pool`).
     """
-    from truthsieve.pipeline.source_pool import analyse_sources
+    from truthsieve.pipeline.source_pool import analyse_sources, start_context
 
+    if workers is not None and workers > 1:
+        start_context()  # the pool's server imports its modules while the night is validated
     folders = start_night(store, batch_date)
     try:
         items = check_items(store, batch_date, config)
