@@ -4,6 +4,7 @@
     python bench/run.py --large    # adds 10M labels (several minutes, a few GiB)
     python bench/run.py --huge     # adds 100M labels (10M items x 10 sources; not in CI)
     python bench/run.py --classes-only --repeat 1   # only the K = 4 against K = 2 row
+    python bench/run.py --many-sources-only --repeat 1   # only 1,000 sources x 1,000 items (DAG steps)
 
 Each case runs in a child process so peak resident memory is its own. Figures are
 medians over --repeat runs. Synthetic data only (fixed seeds). The *tight floor* is
@@ -293,10 +294,27 @@ def measure_many_sources(n_sources: int, n_items: int, sample: int) -> dict:
     screen of the same night is timed beside it."""
     import yaml
 
-    from truthsieve.airflow.operators import CheckItemsOperator, FitConsensusOperator, SourceIncentiveOperator, ValidateSourceOperator
+    from truthsieve.airflow.operators import (
+        CheckItemsOperator, DecideAndPublishOperator, FitConsensusOperator, SourceIncentiveOperator, ValidateSourceOperator,
+    )
+    from truthsieve.pipeline import analysis, night as night_steps
     from truthsieve.pipeline.config import Config
     from truthsieve.pipeline.outputs import publish
     from truthsieve.pipeline.screen import decide, ingest_batch
+    from truthsieve.pipeline.store import LocalStore
+
+    # Count whole-matrix builds per step: wrap prepare wherever a module holds the name.
+    prepares: dict[str, int] = {}
+    step = ["none"]
+    whole = analysis.prepare
+
+    def counted(*args, **kwargs):
+        prepares[step[0]] = prepares.get(step[0], 0) + 1
+        return whole(*args, **kwargs)
+
+    for module in (analysis, night_steps):
+        if hasattr(module, "prepare"):
+            module.prepare = counted
 
     with tempfile.TemporaryDirectory() as tmp:
         inbox, out = Path(tmp) / "inbox", Path(tmp) / "out"
@@ -304,20 +322,29 @@ def measure_many_sources(n_sources: int, n_items: int, sample: int) -> dict:
         (Path(tmp) / "config.yaml").write_text(yaml.safe_dump(raw))
         paths = {"inbox": str(inbox), "batch_date": "2026-01-01", "config_path": str(Path(tmp) / "config.yaml"), "out": str(out)}
 
-        def timed(call):
+        def timed(call, name="none"):
+            step[0] = name
             start = time.perf_counter()
             call()
             return time.perf_counter() - start
 
-        check = timed(lambda: CheckItemsOperator(task_id="check_items", **paths).run({}))
-        validate = [timed(lambda s=s: ValidateSourceOperator(task_id="v", source_folder=f"source_id=s{s:04d}", **paths).run({})) for s in range(n_sources)]
-        fit = timed(lambda: FitConsensusOperator(task_id="fit_consensus", **paths).run({}))
+        check = timed(lambda: CheckItemsOperator(task_id="check_items", **paths).run({}), "check_items")
+        validate = [timed(lambda s=s: ValidateSourceOperator(task_id="v", source_folder=f"source_id=s{s:04d}", **paths).run({}), "validate_source") for s in range(n_sources)]
+        fit = timed(lambda: FitConsensusOperator(task_id="fit_consensus", **paths).run({}), "fit_consensus")
         picks = np.linspace(0, n_sources - 1, sample).round().astype(int)
-        incentive = [timed(lambda s=s: SourceIncentiveOperator(task_id="i", source_id=f"s{s:04d}", **paths).run({})) for s in picks]
+        incentive = [timed(lambda s=s: SourceIncentiveOperator(task_id="i", source_id=f"s{s:04d}", **paths).run({}), "source_incentive") for s in picks]
+        # The decide step reads every source's incentives: the unsampled ones are analysed
+        # untimed in one process over one fit (the same step function, the same floats).
+        step[0] = "source_incentive_untimed"
         config = Config.model_validate(raw)
-        cli_screen = timed(lambda: publish(out / "cli", "2026-01-01", decide(ingest_batch(inbox, "2026-01-01", config), config, {})[1]))
+        store = LocalStore(inbox, out)
+        shared = night_steps.fit_consensus(store, "2026-01-01", config)
+        for s in sorted(set(range(n_sources)) - set(picks.tolist())):
+            night_steps.analyse_source(store, "2026-01-01", config, f"s{s:04d}", shared)
+        publish_step = timed(lambda: DecideAndPublishOperator(task_id="decide_and_publish", **paths).run({}), "decide_and_publish")
+        cli_screen = timed(lambda: publish(out / "cli", "2026-01-01", decide(ingest_batch(inbox, "2026-01-01", config), config, {})[1]), "cli_screen")
     per_source = statistics.median(validate) + statistics.median(incentive)
-    night = check + sum(validate) + fit + n_sources * statistics.median(incentive)
+    night = check + sum(validate) + fit + n_sources * statistics.median(incentive) + publish_step
     return {
         "sources": n_sources,
         "labels": n_sources * n_items,
@@ -327,9 +354,11 @@ def measure_many_sources(n_sources: int, n_items: int, sample: int) -> dict:
             "fit_consensus": fit,
             "source_incentive_median": statistics.median(incentive),
             "per_source_steps": per_source,
+            "decide_and_publish": publish_step,
             "night_of_tasks": night,
             "cli_screen": cli_screen,
         },
+        "prepare_calls": {k: v for k, v in prepares.items() if k != "source_incentive_untimed"},
         "per_source_over_night": per_source / night,
         "incentive_sample": int(sample),
     }
@@ -343,7 +372,9 @@ def many_sources_row(repeat: int, n_sources: int = 1000, n_items: int = 1000) ->
     s = row["seconds"]
     print(f"{'many' + str(n_sources):>10}: per source {s['per_source_steps']:.2f}s (validate {s['validate_source_median']:.3f}s, "
           f"incentive {s['source_incentive_median']:.2f}s), fit {s['fit_consensus']:.2f}s, night of tasks {s['night_of_tasks']:.0f}s, "
-          f"CLI screen {s['cli_screen']:.2f}s")
+          f"decide+publish {s['decide_and_publish']:.2f}s, CLI screen {s['cli_screen']:.2f}s")
+    print(f"{'':>10}  per source / night of tasks {row['per_source_over_night']:.5f}; prepare calls per step "
+          f"{row['prepare_calls']} ({row['incentive_sample']} source_incentive tasks timed)")
     return row
 
 
@@ -363,6 +394,7 @@ def main() -> None:
     parser.add_argument("--many-sources-child", nargs=3, type=int, help=argparse.SUPPRESS)
     parser.add_argument("--classes-child", nargs=2, type=int, help=argparse.SUPPRESS)
     parser.add_argument("--classes-only", action="store_true", help="run only the K = 4 against K = 2 row")
+    parser.add_argument("--many-sources-only", action="store_true", help="run only the 1,000 sources x 1,000 items row (DAG steps)")
     parser.add_argument("--json", type=Path, default=ROOT / "bench" / "results" / "latest.json")
     args = parser.parse_args()
     if args.child:
@@ -373,6 +405,11 @@ def main() -> None:
         return
     if args.classes_child:
         print(json.dumps(measure_classes(args.classes_child[0], args.classes_child[1], args.repeat)))
+        return
+    if args.many_sources_only:
+        row = many_sources_row(args.repeat)
+        args.json.parent.mkdir(parents=True, exist_ok=True)
+        args.json.with_name("many_sources.json").write_text(json.dumps(row, indent=2, sort_keys=True))
         return
     if args.classes_only:
         classes_row(str(args.repeat))

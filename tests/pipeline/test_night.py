@@ -116,6 +116,7 @@ def test_quarantine_copies_are_the_bytes_validated_not_a_later_reread(tmp_path):
     checks = [night.validate_source(LocalStore(inbox, out), DATE, f, config) for f in folders]
     assert [c.source_id for c in checks if not c.valid] == ["south"]
     bad.write_bytes(b"replaced after validation")  # a re-read would copy these bytes
+    night.fit_consensus(LocalStore(inbox, out), DATE, config)
     for source_id in sorted(c.source_id for c in checks if c.valid):
         night.analyse_source(LocalStore(inbox, out), DATE, config, source_id)
     published = night.publish_night(LocalStore(inbox, out), DATE, config)

@@ -125,6 +125,29 @@ def source_statistics(labels: pd.DataFrame, source_id: str, night: NightItems, w
     return core_statistics.source_statistics(source_id, codes, classes, night.item_weights, weight)
 
 
+def item_ranks(items: pd.DataFrame) -> np.ndarray:
+    """Each items-table row's item code (its position in :func:`night_items`' sorted order)."""
+    order = np.argsort(as_ids(items["item_id"]), kind="stable")
+    ranks = np.empty(len(order), dtype=np.int64)
+    ranks[order] = np.arange(len(order))
+    return ranks
+
+
+def source_from_codes(
+    source_id: str, rows: np.ndarray, classes: np.ndarray, night: NightItems, ranks: np.ndarray, weight: float
+) -> SourceLabels:
+    """One source's sparse labels from items-table row positions (the work area's form).
+
+    :param ranks: :func:`item_ranks` of the night's items table.
+    :param weight: the source's normalised weight (:func:`source_weights`).
+    """
+    classes = np.asarray(classes).astype(np.int64)
+    k = night.rule_class.n_classes
+    if len(classes) and (classes.min() < 0 or classes.max() >= k):
+        raise ClassIndexError(f"source {source_id!r}: a label is not a class index 0..{k - 1}")
+    return core_statistics.source_statistics(source_id, ranks[np.asarray(rows, dtype=np.int64)], classes, night.item_weights, weight)
+
+
 def sum_statistics(sources: Sequence[SourceLabels], night: NightItems) -> FloatArray:
     """The night's ``(m, K)`` summed costs; pass the sources in source-id order."""
     return core_statistics.sum_statistics(sorted(sources, key=lambda s: s.source_id), night.n_items, night.rule_class.n_classes)

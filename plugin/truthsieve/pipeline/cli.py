@@ -30,6 +30,20 @@ class _OneLineParser(argparse.ArgumentParser):
         self.exit(EXIT_INPUT, f"error: {self.prog}: {message} (see {self.prog} --help)\n")
 
 
+WORKERS_HELP = "processes for the per-source analysis (default: the machine's cores on a large night; 1: in this process)"
+
+
+def _workers(text: str) -> int:
+    """``--workers``: a whole number of processes, at least 1."""
+    try:
+        value = int(text)
+    except ValueError:
+        value = 0
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number of processes >= 1")
+    return value
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _OneLineParser(
         prog="truthsieve",
@@ -46,6 +60,7 @@ def build_parser() -> argparse.ArgumentParser:
     screen.add_argument("--out", required=True, type=Path, help="output root")
     screen.add_argument("--lock-timeout", type=_seconds, default=600.0, help="seconds to wait for another run of the same date (default 600)")
     screen.add_argument("--json", action="store_true", help="print the decision as JSON instead of the summary")
+    screen.add_argument("--workers", type=_workers, default=None, help=WORKERS_HELP)
 
     backfill = commands.add_parser("backfill", help="screen every night of a date range, oldest first")
     backfill.add_argument("--inbox", required=True, type=Path)
@@ -54,6 +69,7 @@ def build_parser() -> argparse.ArgumentParser:
     backfill.add_argument("--config", required=True, type=Path)
     backfill.add_argument("--out", required=True, type=Path)
     backfill.add_argument("--lock-timeout", type=_seconds, default=600.0)
+    backfill.add_argument("--workers", type=_workers, default=None, help=WORKERS_HELP)
 
     demo = commands.add_parser("demo", help="generate a demo inbox (if missing) and backfill its nights")
     demo.add_argument(
@@ -111,14 +127,14 @@ def write_index(out) -> Path:
     return write(out)
 
 
-def screen(inbox: Path, date: str, config, out: Path, lock_timeout: float):
+def screen(inbox: Path, date: str, config, out: Path, lock_timeout: float, workers: int | None = None):
     """Screen one local night (:func:`truthsieve.pipeline.screen.screen`, which runs
     :func:`~truthsieve.pipeline.night.screen_night`) with the draw key from the environment,
     read here at the edge."""
     from truthsieve.pipeline import screen as screening
     from truthsieve.pipeline.night import draw_key_from_environment
 
-    return screening.screen(inbox, date, config, out, lock_timeout, draw_key=draw_key_from_environment(os.environ))
+    return screening.screen(inbox, date, config, out, lock_timeout, draw_key=draw_key_from_environment(os.environ), workers=workers)
 
 
 def _check_features(inbox: Path, dates: Sequence[str], config) -> None:
@@ -126,7 +142,9 @@ def _check_features(inbox: Path, dates: Sequence[str], config) -> None:
         check_features_present(inbox, dates, config.rule_class.features)
 
 
-def backfill(inbox: Path, dates: Sequence[str], config_path: Path | None, out: Path, lock_timeout: float, config=None) -> int:
+def backfill(
+    inbox: Path, dates: Sequence[str], config_path: Path | None, out: Path, lock_timeout: float, config=None, workers: int | None = None
+) -> int:
     from truthsieve.pipeline.config import load_config
     from truthsieve.pipeline.layout import batch_dir
 
@@ -140,7 +158,7 @@ def backfill(inbox: Path, dates: Sequence[str], config_path: Path | None, out: P
     results = []
     for k, date in enumerate(present):
         _progress(k, len(present), date)
-        results.append(screen(inbox, date, config, out, lock_timeout))
+        results.append(screen(inbox, date, config, out, lock_timeout, workers))
     _progress(len(present), len(present), "done")
     index = write_index(out)
     routes = [r.route for r in results]
@@ -163,7 +181,7 @@ def run(argv: Sequence[str] | None = None) -> int:
         config = load_config(args.config)
         check_out_location(args.inbox, args.out)
         _check_features(args.inbox, [args.date], config)
-        result = screen(args.inbox, args.date, config, args.out, args.lock_timeout)
+        result = screen(args.inbox, args.date, config, args.out, args.lock_timeout, args.workers)
         write_index(args.out)
         print(json.dumps(result.decision, sort_keys=True, indent=2) if args.json else summary(result.decision, result.output))
         return EXIT_OK
@@ -173,7 +191,7 @@ def run(argv: Sequence[str] | None = None) -> int:
             print("error: --to is before --from", file=sys.stderr)
             return EXIT_INPUT
         dates = [(first + dt.timedelta(days=k)).isoformat() for k in range((last - first).days + 1)]
-        return backfill(args.inbox, dates, args.config, args.out, args.lock_timeout)
+        return backfill(args.inbox, dates, args.config, args.out, args.lock_timeout, workers=args.workers)
     if args.command in LEDGER_COMMANDS:
         return run_ledger_command(args)
     from truthsieve.pipeline import demo

@@ -24,16 +24,16 @@ import numpy as np
 import pyarrow as pa
 
 from truthsieve.core.draw import DEMO_DRAW_KEY, DRAW_KEY_VARIABLE
-from truthsieve.core.incentives import SourceIncentive, incentive_context, source_incentive
-from truthsieve.core.labels import LabelMatrix, id_array
-from truthsieve.core.mechanisms import ConsensusFit
-from truthsieve.core.rules import RuleClass
+from truthsieve.core.incentives import SourceIncentive, context_from_totals
+from truthsieve.core.labels import id_array
+from truthsieve.core.statistics import add_contribution
 from truthsieve.exceptions import InputError
 from truthsieve.pipeline import ingest, work_files
-from truthsieve.pipeline.analysis import prepare
+from truthsieve.pipeline.analysis import analyse_one_source, fit_from_totals, item_ranks, night_items, source_from_codes, source_weights
 from truthsieve.pipeline.config import Config
 from truthsieve.pipeline.decision import Decision, decision_json
-from truthsieve.pipeline.layout import ITEMS_FILE, batch_dir
+from truthsieve.pipeline.layout import ITEMS_FILE, batch_dir, source_name
+from truthsieve.pipeline.night_fit import Fit, read_fit
 from truthsieve.pipeline.records import FileCheck, Intake
 
 #: (key, is_demo_key) of the public demo key, used when an edge passes no secret.
@@ -111,37 +111,61 @@ def validate_source(store, batch_date: str, folder: str, config: Config, index: 
     return check
 
 
-@dataclass(frozen=True)
-class Fit:
-    """The consensus fit and what each source's analysis shares."""
-
-    matrix: LabelMatrix
-    rule_class: RuleClass
-    consensus: ConsensusFit
-    global_risks: np.ndarray
-
-    def summary(self) -> dict:
-        rule = self.rule_class.describe(self.consensus.rule)
-        return {"rule": rule, "risk": self.consensus.risk, "sources": len(self.matrix.source_ids)}  # XCom: small
-
-
 def fit_consensus(store, batch_date: str, config: Config, intake: Intake | None = None) -> Fit | None:
     """The consensus fit (ERM) over the valid sources; None when there is nothing to fit.
 
-    :param intake: the night's validated intake; read from the work area when None.
+    Each source's labels (its sufficient statistics, written by :func:`validate_source`)
+    are read one at a time, weighted by the normalised weights known only here, and
+    added into the night's ``(m, K)`` totals; the totals, the rules' global risks and the
+    fit go to the work area for :func:`analyse_source`.
+
+    :param intake: the night's validated intake (held by this process); read from the
+        work area, one source at a time, when None.
     """
-    intake = intake or work_files.read_intake(store, batch_date)
-    if not (intake.items.valid and intake.valid_sources):
+    if intake is not None:
+        items = intake.items.table if intake.items.valid else None
+        held = {s.source_id: s for s in intake.valid_sources}
+        present = sorted(held)
+        load = lambda source_id: (held[source_id].item_codes, held[source_id].table["label"].to_numpy(dtype=np.int8))  # noqa: E731
+    else:
+        items_check = work_files.read_items(store, batch_date)
+        items = items_check.table if items_check.valid else None
+        folders = dict(work_files.valid_source_folders(store, batch_date))
+        present = sorted(folders)
+        load = lambda source_id: work_files.read_source_codes(store, batch_date, folders[source_id])  # noqa: E731
+    if items is None or not present:
         return None
-    matrix, rule_class, consensus = prepare(intake.labels, intake.items.table, config)
-    return Fit(matrix, rule_class, consensus, incentive_context(matrix, rule_class))
+    night, ranks = night_items(items, config), item_ranks(items)
+    weights = source_weights(config, present)
+    totals = np.zeros((night.n_items, night.rule_class.n_classes))
+    sources = {}
+    for source_id in present:  # in source order, from zeros: the whole-night path's floats
+        own = source_from_codes(source_id, *load(source_id), night, ranks, weights[source_id])
+        add_contribution(totals, own)
+        if intake is not None:
+            sources[source_id] = own
+    consensus = fit_from_totals(totals, night)
+    global_risks = context_from_totals(totals, night.rule_class)
+    record = {"rule": int(consensus.rule), "risk": float(consensus.risk), "weights": weights}
+    work_files.write_night_fit(store, batch_date, totals, global_risks, record)
+    return Fit(night, consensus, totals, global_risks, weights, ranks, sources)
 
 
 def analyse_source(store, batch_date: str, config: Config, source_id: str, fit: Fit | None = None) -> SourceIncentive:
-    """One source's gain bracket and cheapest lie under the fit; written to the work area."""
-    fit = fit or fit_consensus(store, batch_date, config)
-    index = fit.matrix.source_ids.index(source_id)
-    result = source_incentive(fit.matrix, fit.rule_class, fit.consensus, index, config.analysis.incentive_budget, fit.global_risks)
+    """One source's gain bracket and cheapest lie from the night's totals, the fit and
+    its own labels only; written to the work area.
+
+    :param fit: from :func:`fit_consensus` or :func:`read_fit`; read from the work area when None.
+    """
+    fit = fit or read_fit(store, batch_date, config)
+    if source_id not in fit.weights:
+        raise InputError(f"{source_id!r} is not a valid source of the night {batch_date}")
+    own = fit.sources.get(source_id)
+    if own is None:
+        rows, classes = work_files.read_source_codes(store, batch_date, source_name(source_id))
+        own = source_from_codes(source_id, rows, classes, fit.night, fit.ranks, fit.weights[source_id])
+    budget = config.analysis.incentive_budget
+    result = analyse_one_source(fit.totals, own, fit.night, fit.consensus, budget, fit.global_risks)
     work_files.write_incentive(store, batch_date, result)
     return result
 
@@ -232,15 +256,24 @@ def send_alerts(store, batch_date: str, send: Callable[[dict], None]) -> dict:
     return {"sent": fresh, "already_sent": len(messages) - fresh}
 
 
-def screen_night(store, batch_date: str, config: Config, draw_key: tuple[str, bool] = DEMO_KEY, index: bool = True) -> Published:
-    """Every step of one night in order, in this process (the command line)."""
+def screen_night(
+    store, batch_date: str, config: Config, draw_key: tuple[str, bool] = DEMO_KEY, index: bool = True, workers: int | None = 1
+) -> Published:
+    """Every step of one night in order (the command line): in this process, but for the
+    per-source analysis, which runs on a pool of ``workers`` processes when more than 1
+    (None: the machine's cores for a night large enough; see :mod:`truthsieve.pipeline.source_pool`).
+    """
+    from truthsieve.pipeline.source_pool import analyse_sources, start_context
+
+    if workers is not None and workers > 1:
+        start_context()  # the pool's server imports its modules while the night is validated
     folders = start_night(store, batch_date)
     try:
         items = check_items(store, batch_date, config)
         items_index = item_index(items)
         intake = Intake(batch_date, items, [validate_source(store, batch_date, f, config, items_index) for f in folders])
         fit = fit_consensus(store, batch_date, config, intake)
-        incentives = None if fit is None else [analyse_source(store, batch_date, config, s, fit) for s in fit.matrix.source_ids]
+        incentives = None if fit is None else analyse_sources(store, batch_date, config, fit, workers)
         return publish_night(store, batch_date, config, draw_key, intake, incentives, index)
     finally:
         store.clear_work(batch_date)

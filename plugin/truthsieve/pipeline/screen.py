@@ -114,9 +114,10 @@ def screen(
     *,
     draw_key: tuple[str, bool] = DEMO_KEY,
     index: bool = False,
+    workers: int | None = 1,
 ) -> Published:
     """Screen one local night and publish it (:func:`~truthsieve.pipeline.night.screen_night`)."""
     from truthsieve.pipeline.store import LocalStore, private_run
 
     store = LocalStore(Path(inbox), Path(out), run=private_run(), lock_timeout=lock_timeout)
-    return screen_night(store, batch_date, config, draw_key, index=index)
+    return screen_night(store, batch_date, config, draw_key, index=index, workers=workers)

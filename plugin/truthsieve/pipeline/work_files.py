@@ -9,13 +9,21 @@ Files under the store's work folder (see :meth:`BatchStore.work`)::
     sources/<folder>.json               that source's check summary (inputs with sha256, errors, notes)
     quarantine/<folder>.parquet         an invalid check's input bytes (``path``, ``data``, binary),
     quarantine/items.parquet            taken from the bytes validated, never re-read
+    night/totals.npy                    the night's (m, K) summed costs (float64, ``.npy``), from
+                                        fit_consensus; rows in item-id order
+    night/global_risks.npy              every rule's unclipped global risk from those totals
+    night/fit.json                      the consensus fit (rule, risk) and the normalised weight of
+                                        each valid source (written last: the marker)
     incentives/<source_id>.json         one source's incentive analysis
 
-A summary is written after its table, so a present summary means a whole step.
+A summary is written after its table, so a present summary means a whole step. The
+sources' tables are their sufficient statistics: no step needs any other source's labels
+but ``fit_consensus`` (one at a time, summed into the totals) and ``publish_night``.
 """
 
 from __future__ import annotations
 
+import io
 import json
 from dataclasses import asdict
 from pathlib import Path
@@ -33,6 +41,7 @@ from truthsieve.pipeline.records import FileCheck, Intake, quarantine_bytes
 
 ITEMS_TABLE, ITEMS_SUMMARY = "items.parquet", "items.json"
 ITEMS_QUARANTINE = "quarantine/items.parquet"
+NIGHT_TOTALS, NIGHT_RISKS, NIGHT_FIT = "night/totals.npy", "night/global_risks.npy", "night/fit.json"
 
 
 class StepNotRunError(InputError):
@@ -147,6 +156,50 @@ def quarantine_copies(store, intake: Intake) -> dict[str, bytes]:
             relative = Path(path.decode("utf-8", "surrogateescape")).relative_to(batch_name(intake.batch_date))
             copies[f"quarantine/{relative.as_posix()}"] = content
     return copies
+
+
+def valid_source_folders(store, batch_date: str) -> list[tuple[str, str]]:
+    """(source_id, folder) of every source validated as valid in this run, by summary alone."""
+    found = []
+    for folder in store.source_folders(batch_date):
+        summary = store.read_work(batch_date, source_summary(folder))
+        if summary is None:
+            raise StepNotRunError(f"{folder} was not validated in this run")
+        check = json.loads(summary)
+        if not check["errors"]:
+            found.append((check["source_id"], folder))
+    return found
+
+
+def read_source_codes(store, batch_date: str, folder: str) -> tuple[np.ndarray, np.ndarray]:
+    """One valid source's labels as (item positions in the items table, class indices)."""
+    data = store.read_work(batch_date, source_table(folder))
+    if data is None:
+        raise StepNotRunError(f"the labels of {folder} were not validated in this run")
+    table = _read_parquet(data)
+    return table.column("item").to_numpy(), table.column("label").to_numpy()
+
+
+def _npy(array: np.ndarray) -> bytes:
+    buffer = io.BytesIO()
+    np.save(buffer, array, allow_pickle=False)
+    return buffer.getvalue()
+
+
+def write_night_fit(store, batch_date: str, totals: np.ndarray, global_risks: np.ndarray, fit: dict) -> None:
+    """The consensus step's result: the summed costs, the rules' global risks, the fit."""
+    store.write_work(batch_date, NIGHT_TOTALS, _npy(totals))
+    store.write_work(batch_date, NIGHT_RISKS, _npy(global_risks))
+    store.write_work(batch_date, NIGHT_FIT, _json(fit))  # last: the marker
+
+
+def read_night_fit(store, batch_date: str) -> tuple[np.ndarray, np.ndarray, dict]:
+    """(totals, global risks, fit record) as :func:`write_night_fit` wrote them."""
+    fit = store.read_work(batch_date, NIGHT_FIT)
+    if fit is None:
+        raise StepNotRunError("the consensus was not fitted in this run (step fit_consensus)")
+    arrays = [np.load(io.BytesIO(store.read_work(batch_date, name)), allow_pickle=False) for name in (NIGHT_TOTALS, NIGHT_RISKS)]
+    return arrays[0], arrays[1], json.loads(fit)
 
 
 def write_incentive(store, batch_date: str, result: SourceIncentive) -> None:
