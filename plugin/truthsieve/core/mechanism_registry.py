@@ -101,6 +101,11 @@ Draws = list[tuple[str | None, float, int]]  # (source_id or None, probability, 
 _NUMBER_WORDS = {1: "one", 2: "two", 3: "three", 4: "four"}
 
 
+def number_word(n: int) -> str:
+    """``2`` -> ``"two"`` for the small counts messages name; larger ones as digits."""
+    return _NUMBER_WORDS.get(n, str(n))
+
+
 @dataclass(frozen=True, kw_only=True)
 class MechanismSpec:
     """One mechanism of :data:`MECHANISM_REGISTRY`: what it is, where it applies, its guarantee.
@@ -130,7 +135,7 @@ class MechanismSpec:
             return None
         needs = " or ".join(self.accepted_kinds()) + " rule class"
         if self.rule_count is not None:
-            needs += f" of exactly {_NUMBER_WORDS.get(self.rule_count, str(self.rule_count))} rules"
+            needs += f" of exactly {number_word(self.rule_count)} rules"
         return f"{self.name} needs the {needs}, not {kind!r} with {size} rules"
 
     def draws(
