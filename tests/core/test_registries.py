@@ -3,14 +3,13 @@ checked and run like the shipped ones, and an unknown name's error lists the reg
 
 from __future__ import annotations
 
-from contextlib import contextmanager
-
 import numpy as np
 import pandas as pd
 import pytest
 
 from core_support import core_objects
 from oracle import Instance
+from registry_support import registered, squared_scores
 from truthsieve.core.mechanisms import (
     DICTATORS,
     MECHANISM_REGISTRY,
@@ -31,20 +30,7 @@ from truthsieve.exceptions import MechanismError, RuleClassError
 SHIPPED_MECHANISMS = ("erm", "random_dictator", "weighted_dictator", "tuned_dictator", "two_rule_vote", "two_rule_lottery")
 
 
-@contextmanager
-def registered(registry, entry):
-    registry.register(entry)
-    try:
-        yield entry
-    finally:
-        registry.unregister(entry.name)
-
-
-def _squared_scores(present, registry_total):
-    return np.asarray(present, dtype=np.float64) ** 2
-
-
-SQUARED = DictatorLottery(name="squared_dictator", description="test only: p ~ w^2", scores=_squared_scores)
+SQUARED = DictatorLottery(name="squared_dictator", description="test only: p ~ w^2", scores=squared_scores)
 
 
 @pytest.fixture
@@ -102,8 +88,8 @@ def test_a_name_registered_twice_is_refused():
 
 
 def test_the_entry_decides_which_rule_classes_and_how_many_rules_it_accepts():
-    only_listed = DictatorLottery(name="listed_dictator", description="test", scores=_squared_scores, rule_classes=("listed",))
-    three_rules = DictatorLottery(name="three_rule_dictator", description="test", scores=_squared_scores, rule_count=3)
+    only_listed = DictatorLottery(name="listed_dictator", description="test", scores=squared_scores, rule_classes=("listed",))
+    three_rules = DictatorLottery(name="three_rule_dictator", description="test", scores=squared_scores, rule_count=3)
     with registered(MECHANISM_REGISTRY, only_listed), registered(MECHANISM_REGISTRY, three_rules):
         constant = core_objects(TWO_SOURCES, "constant")
         with pytest.raises(MechanismError, match="^listed_dictator needs the listed rule class, not 'constant' with 2 rules$"):

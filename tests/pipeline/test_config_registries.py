@@ -3,12 +3,10 @@ an entry registered in a test is accepted or refused by what the entry says."""
 
 from __future__ import annotations
 
-from contextlib import contextmanager
-
-import numpy as np
 import pytest
 import yaml
 
+from registry_support import registered, squared_scores
 from truthsieve.core.mechanisms import MECHANISM_REGISTRY, ConsensusMechanism, DictatorLottery, constant_guarantee
 from truthsieve.core.rules import RULE_CLASSES, ConstantRules, RuleClassKind
 from truthsieve.exceptions import ConfigError
@@ -18,22 +16,9 @@ from truthsieve.pipeline.routing import registry_guarantee
 SHIPPED = "erm, random_dictator, weighted_dictator, tuned_dictator, two_rule_vote, two_rule_lottery"
 
 
-@contextmanager
-def registered(registry, entry):
-    registry.register(entry)
-    try:
-        yield entry
-    finally:
-        registry.unregister(entry.name)
-
-
-def _scores(present, registry_total):
-    return np.asarray(present, dtype=np.float64) ** 2
-
-
 @pytest.fixture
 def squared_dictator():
-    with registered(MECHANISM_REGISTRY, DictatorLottery(name="squared_dictator", description="test: p ~ w^2", scores=_scores)) as entry:
+    with registered(MECHANISM_REGISTRY, DictatorLottery(name="squared_dictator", description="test: p ~ w^2", scores=squared_scores)) as entry:
         yield entry
 
 
@@ -64,7 +49,7 @@ def test_an_unknown_mechanism_lists_the_registry(tmp_path, squared_dictator):
 
 
 def test_a_mechanism_once_unregistered_is_refused(tmp_path):
-    with registered(MECHANISM_REGISTRY, DictatorLottery(name="squared_dictator", description="test", scores=_scores)):
+    with registered(MECHANISM_REGISTRY, DictatorLottery(name="squared_dictator", description="test", scores=squared_scores)):
         assert _load(tmp_path, mechanism="squared_dictator").mechanism == "squared_dictator"
     assert f"unknown mechanism 'squared_dictator'; expected one of {SHIPPED}" in _error(tmp_path, mechanism="squared_dictator")
 
@@ -79,7 +64,7 @@ def test_a_mechanism_marked_not_strategy_proof_needs_guarded_mode(tmp_path):
 
 
 def test_the_entry_says_which_rule_classes_a_mechanism_accepts(tmp_path):
-    entry = DictatorLottery(name="listed_dictator", description="test", scores=_scores, rule_classes=("listed", "constant"))
+    entry = DictatorLottery(name="listed_dictator", description="test", scores=squared_scores, rule_classes=("listed", "constant"))
     with registered(MECHANISM_REGISTRY, entry):
         message = _error(tmp_path, mechanism="listed_dictator", rule_class={"kind": "threshold", "features": ["f"]})
         assert "mechanism 'listed_dictator' needs rule_class.kind 'listed' or 'constant'" in message
@@ -90,7 +75,7 @@ def test_the_entry_says_which_rule_classes_a_mechanism_accepts(tmp_path):
 
 
 def test_the_entry_says_how_many_rules_a_mechanism_accepts(tmp_path):
-    entry = DictatorLottery(name="three_rule_dictator", description="test", scores=_scores, rule_count=3)
+    entry = DictatorLottery(name="three_rule_dictator", description="test", scores=squared_scores, rule_count=3)
     with registered(MECHANISM_REGISTRY, entry):
         message = _error(tmp_path, mechanism="three_rule_dictator")  # default: two classes, so two constant rules
         assert "mechanism 'three_rule_dictator' chooses between exactly three rules, but classes has 2 (so the constant class has 2 rules)" in message
