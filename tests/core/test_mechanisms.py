@@ -14,17 +14,19 @@ from core_support import FEATURES, core_objects
 from oracle import Instance, all_reports, erm, global_risk, private_risk
 from strategies import instances
 from truthsieve.core import MECHANISMS, build_label_matrix, build_rule_class, run_mechanism
+from truthsieve.core.mechanisms import MECHANISM_REGISTRY
 from truthsieve.exceptions import MechanismError, NoItemsError, NoSourcesError, UnknownReferenceError, WeightError
 
-STRATEGY_PROOF = [m for m in MECHANISMS if m != "erm"]
+# What each mechanism claims and accepts comes from its registry entry.
+STRATEGY_PROOF = [m.name for m in MECHANISM_REGISTRY if m.strategy_proof]
 
 
 def kinds_for(mechanism: str) -> list[str]:
-    return ["constant"] if mechanism.startswith("two_rule") else ["constant", "threshold", "listed"]
+    return list(MECHANISM_REGISTRY.get(mechanism).accepted_kinds())
 
 
 CASES = [(m, k) for m in MECHANISMS for k in kinds_for(m)]
-SP_CASES = [(m, k) for m, k in CASES if m != "erm"]
+SP_CASES = [(m, k) for m, k in CASES if m in STRATEGY_PROOF]
 
 
 def labelling_of(rule_class, rule: int) -> tuple[int, ...]:

@@ -74,10 +74,57 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from truthsieve.core.labels import TIE_TOLERANCE, LabelMatrix, risk_is_zero
+from truthsieve.core.labels import LabelMatrix, risk_is_zero
+from truthsieve.core.mechanism_registry import (
+    DICTATORS,
+    MECHANISM_REGISTRY,
+    MECHANISMS,
+    ConsensusMechanism,
+    DictatorLottery,
+    MechanismKind,
+    MechanismSpec,
+    TwoRuleMechanism,
+    constant_guarantee,
+    dictator_guarantee,
+    own_best_rule,
+    two_rule_lottery_probability_one,
+    two_rule_vote_probability_one,
+    two_rule_vote_share,
+)
 from truthsieve.core.rules import RuleClass
-from truthsieve.core.statistics import FloatArray, IntArray, SourceLabels, shared_inputs
+from truthsieve.core.statistics import FloatArray, IntArray, SourceLabels
 from truthsieve.exceptions import MechanismError
+
+__all__ = [
+    "ConsensusFit",
+    "ConsensusMechanism",
+    "DICTATORS",
+    "DictatorLottery",
+    "LotteryEntry",
+    "MECHANISMS",
+    "MECHANISM_REGISTRY",
+    "MechanismKind",
+    "MechanismResult",
+    "MechanismSpec",
+    "TwoRuleMechanism",
+    "check_applies",
+    "constant_guarantee",
+    "dictator_guarantee",
+    "dictator_probabilities",
+    "dictator_scores",
+    "fit_consensus",
+    "fit_from_totals",
+    "mechanism_spec",
+    "own_best_rule",
+    "own_best_rules",
+    "registry_guarantee",
+    "risk_ratio",
+    "run_from_statistics",
+    "run_mechanism",
+    "two_rule_lottery_probability_one",
+    "two_rule_vote_probability_one",
+    "two_rule_vote_share",
+]
 
 
 @dataclass(frozen=True)
@@ -117,21 +164,27 @@ def fit_from_totals(totals: FloatArray, rule_class: RuleClass) -> ConsensusFit:
     return ConsensusFit(rule=best, risk=risk)
 
 
-def own_best_rule(source: SourceLabels, rule_class: RuleClass) -> int:
-    """A source's ERM on its own labels alone (its dictator rule): O(K |S_i|) plus the cuts."""
-    return rule_class.fit(source.sparse_costs(rule_class.n_classes), items=source.items)
-
-
 def own_best_rules(matrix: LabelMatrix, rule_class: RuleClass) -> IntArray:
     """Each source's ERM on its own labels alone (its dictator rule)."""
     return np.array([own_best_rule(s, rule_class) for s in matrix.sources], dtype=np.int64)
 
 
-def dictator_guarantee(probabilities: FloatArray, weights: FloatArray) -> float:
-    """Worst-case ratio ``1 + 2 max_i p_i (1 - w_i) / w_i`` of a fixed dictator lottery."""
-    if len(weights) == 1:
-        return 1.0
-    return float(1.0 + 2.0 * np.max(probabilities * (1.0 - weights) / weights))
+def mechanism_spec(name: str) -> MechanismSpec:
+    """The registry entry of mechanism ``name``.
+
+    :raises MechanismError: unknown name (the message lists the registered ones).
+    """
+    spec = MECHANISM_REGISTRY.get(name)
+    if spec is None:
+        raise MechanismError(MECHANISM_REGISTRY.unknown(name))
+    return spec
+
+
+def _dictator(name: str) -> DictatorLottery:
+    spec = mechanism_spec(name)
+    if not isinstance(spec, DictatorLottery):
+        raise MechanismError(f"{name!r} is not a dictator mechanism")
+    return spec
 
 
 def dictator_scores(name: str, present: FloatArray, registry_total: float | None = None) -> FloatArray:
@@ -142,27 +195,12 @@ def dictator_scores(name: str, present: FloatArray, registry_total: float | None
         None means the sources present are the whole registry.
     """
     present = np.asarray(present, dtype=np.float64)
-    if name == "random_dictator":
-        return np.ones(len(present))
-    if name == "weighted_dictator":
-        return present.copy()
-    if name == "tuned_dictator":
-        total = float(present.sum()) if registry_total is None else float(registry_total)
-        shares = present / total
-        if len(present) == 1:
-            return np.ones(1)  # also the case share = 1 (a registry of one source)
-        odds: FloatArray = shares / (1.0 - shares)
-        return odds
-    raise MechanismError(f"{name!r} is not a dictator mechanism")
+    return _dictator(name).scores(present, float(present.sum()) if registry_total is None else float(registry_total))
 
 
 def dictator_probabilities(name: str, weights: FloatArray, registry_total: float | None = None) -> FloatArray:
     """``p_j = a_j / sum_k a_k`` over the sources present (weights need not be normalised)."""
-    if len(weights) == 1:
-        return np.ones(1)
-    scores = dictator_scores(name, weights, registry_total)
-    probabilities: FloatArray = scores / scores.sum()
-    return probabilities
+    return _dictator(name).probabilities(np.asarray(weights, dtype=np.float64), registry_total)
 
 
 def registry_guarantee(name: str, registry_weights: FloatArray) -> float:
@@ -170,52 +208,20 @@ def registry_guarantee(name: str, registry_weights: FloatArray) -> float:
 
     Depends on the configuration alone, so no source's labels or absence can move it.
     """
-    weights = np.asarray(registry_weights, dtype=np.float64)
-    if name == "erm":
-        return 1.0
-    if name == "two_rule_vote":
-        return 3.0
-    if name == "two_rule_lottery":
-        return 2.0
-    normalised = weights / weights.sum()
-    return dictator_guarantee(dictator_probabilities(name, weights), normalised)
+    return mechanism_spec(name).registry_guarantee(np.asarray(registry_weights, dtype=np.float64))
 
 
-def two_rule_vote_share(matrix: LabelMatrix | Sequence[SourceLabels]) -> float:
-    """``t``: the normalised weight of sources whose item-weighted majority label is 1."""
-    sources = matrix.sources if isinstance(matrix, LabelMatrix) else matrix
-    # A source prefers all-1 when predicting 0 would cost it more; exact ties vote 0.
-    votes_one = np.array(
-        [s.shares[s.classes != 0].sum() > s.shares[s.classes != 1].sum() + TIE_TOLERANCE for s in sources], dtype=bool
-    )
-    weights = np.array([s.weight for s in sources], dtype=np.float64)
-    return float(weights[votes_one].sum())
-
-
-def two_rule_lottery_probability_one(t: float) -> float:
-    """P(all-1) of the two-rule lottery for vote share ``t``."""
-    if t <= 0.5:
-        return t / (2.0 * (1.0 - t))
-    return 1.0 - (1.0 - t) / (2.0 * t)
-
-
-MECHANISMS = ("erm", "random_dictator", "weighted_dictator", "tuned_dictator", "two_rule_vote", "two_rule_lottery")
-DICTATORS = ("random_dictator", "weighted_dictator", "tuned_dictator")
-
-
-def check_applies(name: str, rule_class: RuleClass) -> None:
-    """Refuse an unknown mechanism, or a two-rule mechanism on a class that is not exactly
-    the two constant rules.
+def check_applies(name: str, rule_class: RuleClass) -> MechanismSpec:
+    """The entry of ``name``; refuses an unknown mechanism, or a class of a kind or a number
+    of rules the entry does not accept (two-rule mechanisms: exactly the two constant rules).
 
     :raises MechanismError: with the reason in one line.
     """
-    if name not in MECHANISMS:
-        raise MechanismError(f"unknown mechanism {name!r}; expected one of {', '.join(MECHANISMS)}")
-    if name.startswith("two_rule") and (rule_class.kind != "constant" or rule_class.size != 2):
-        raise MechanismError(
-            f"{name} needs the constant rule class of exactly two rules (two classes), "
-            f"not {rule_class.kind!r} with {rule_class.size} rules"
-        )
+    spec = mechanism_spec(name)
+    reason = spec.refusal(rule_class.kind, rule_class.size)
+    if reason is not None:
+        raise MechanismError(reason)
+    return spec
 
 
 def run_mechanism(
@@ -237,48 +243,21 @@ def run_from_statistics(
     consensus: ConsensusFit | None = None,
     registry_weights: Mapping[str, float] | None = None,
 ) -> MechanismResult:
-    """Run mechanism ``name`` and return its exact lottery, expected risk and ratio.
+    """Run mechanism ``name`` (its :data:`MECHANISM_REGISTRY` entry) and return its exact
+    lottery, expected risk and ratio.
 
     :param totals: the night's ``(m, K)`` summed costs.
     :param sources: every present source's sparse labels, in source order.
     :param registry_weights: registry weight of every *registered* source (present or
         not); ``tuned_dictator`` fixes its odds from them. None: the sources present are
         the whole registry.
-    :raises MechanismError: unknown name, or a two-rule mechanism on another class.
+    :raises MechanismError: unknown name, or a class the mechanism does not accept.
     """
-    check_applies(name, rule_class)
+    spec = check_applies(name, rule_class)
     consensus = consensus or fit_from_totals(totals, rule_class)
     rule_risks = rule_class.risks(totals)
-    entries: list[tuple[str | None, float, int]]
-
-    if name == "erm":
-        entries = [(None, 1.0, consensus.rule)]
-        guarantee, applies = 1.0, True
-    elif name in DICTATORS:
-        weights = np.array([s.weight for s in sources], dtype=np.float64)
-        total: float | None
-        if registry_weights is None:
-            present, total = weights, None
-        else:
-            present = np.array([float(registry_weights[s.source_id]) for s in sources])
-            total = float(sum(registry_weights.values()))
-        probabilities = dictator_probabilities(name, present, total)
-        rules = [own_best_rule(s, rule_class) for s in sources]
-        entries = [(s.source_id, float(p), int(r)) for s, p, r in zip(sources, probabilities, rules)]
-        guarantee = dictator_guarantee(probabilities, weights)
-        applies = shared_inputs(sources) or len(sources) == 1
-    else:
-        t = two_rule_vote_share(sources)
-        if name == "two_rule_vote":
-            p_one = 1.0 if t > 0.5 + TIE_TOLERANCE else 0.0
-            guarantee = 3.0
-        else:
-            p_one = two_rule_lottery_probability_one(t)
-            guarantee = 2.0
-        entries = [(None, 1.0 - p_one, 0), (None, p_one, 1)]
-        applies = True
-
-    lottery = tuple(LotteryEntry(s, p, r, float(rule_risks[r])) for s, p, r in entries)
+    draws, guarantee, applies = spec.draws(sources, rule_class, consensus, registry_weights)
+    lottery = tuple(LotteryEntry(s, p, r, float(rule_risks[r])) for s, p, r in draws)
     expected = float(sum(e.probability * e.risk for e in lottery))
     return MechanismResult(
         name=name,

@@ -20,31 +20,41 @@ Orders (tie-break, earliest wins):
 * ``listed``: the ``rule__<name>`` columns sorted by name.
 
 The threshold class and its ERM live in :mod:`truthsieve.core.threshold_rules`.
+
+**Adding a rule class is one entry in** :data:`RULE_CLASSES` (a :class:`RuleClassKind`:
+name, builder, what it needs). :func:`build_rule_class`, :data:`RULE_CLASS_KINDS`, the
+configuration's ``rule_class.kind`` (and its ``features`` requirement) and the mechanisms'
+rule-class checks all read that registry.
 """
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
+from truthsieve.core.registry import Registry
 from truthsieve.core.rule_class import RULE_COLUMN_PREFIX, RuleClass, RuleForm, class_totals, first_minimum
 from truthsieve.core.statistics import FloatArray, IntArray
 from truthsieve.core.threshold_rules import ThresholdRules
 from truthsieve.exceptions import ClassIndexError, RuleClassError
 
 __all__ = [
+    "RULE_CLASSES",
     "RULE_CLASS_KINDS",
     "RULE_COLUMN_PREFIX",
     "ConstantRules",
     "ListedRules",
     "RuleClass",
+    "RuleClassKind",
     "RuleForm",
     "ThresholdRules",
     "build_rule_class",
     "class_totals",
     "first_minimum",
+    "rule_class_kind",
 ]
 
 
@@ -111,32 +121,85 @@ class ListedRules(RuleClass):
         return {"kind": "listed", "name": self.names[index]}
 
 
-RULE_CLASS_KINDS = ("constant", "threshold", "listed")
+@dataclass(frozen=True)
+class RuleClassKind:
+    """One rule class: its ``rule_class.kind`` name, its builder and what the builder needs.
+
+    :param build: ``build(columns, n_items, n_classes)`` with ``columns`` the items table
+        aligned to the label matrix and cut down to what the entry says it needs: the
+        configured features in tie-break order (``needs_features``), then the ``rule__*``
+        columns (``uses_rule_columns``).
+    :param size_for_classes: the number of rules as a function of ``K`` when the items do
+        not change it (``constant``: ``K``), else None; the configuration uses it to refuse
+        a mechanism that needs a fixed number of rules before any data is read.
+    """
+
+    name: str
+    description: str
+    build: Callable[[pd.DataFrame, int, int], RuleClass]
+    needs_features: bool = False
+    uses_rule_columns: bool = False
+    size_for_classes: Callable[[int], int] | None = None
+
+
+def _rule_columns(columns: pd.Index) -> list[str]:
+    return [c for c in columns if str(c).startswith(RULE_COLUMN_PREFIX)]
+
+
+RULE_CLASSES: Registry[RuleClassKind] = Registry(
+    "rule class",
+    [
+        RuleClassKind(
+            "constant", "label everything k", lambda columns, n_items, k: ConstantRules(n_items, k), size_for_classes=lambda k: k
+        ),
+        RuleClassKind(
+            "threshold",
+            "x > cut gets one class, the rest another, per feature; the constant rules too",
+            lambda columns, n_items, k: ThresholdRules(columns, k),
+            needs_features=True,
+        ),
+        RuleClassKind(
+            "listed", "the rule__<name> columns of the items table", lambda columns, n_items, k: ListedRules(columns, k), uses_rule_columns=True
+        ),
+    ],
+)
+# The kinds, in registry order: a live view, so a registered kind shows up here too.
+RULE_CLASS_KINDS = RULE_CLASSES.names()
+
+
+def rule_class_kind(kind: str) -> RuleClassKind:
+    """The registry entry of ``kind``.
+
+    :raises RuleClassError: unknown kind (the message lists the registered ones).
+    """
+    entry = RULE_CLASSES.get(kind)
+    if entry is None:
+        raise RuleClassError(RULE_CLASSES.unknown(kind))
+    return entry
 
 
 def build_rule_class(
     kind: str, items: pd.DataFrame, item_ids: np.ndarray, features: Sequence[str] = (), n_classes: int = 2
 ) -> RuleClass:
-    """Build the rule class ``kind`` over the items, aligned to ``item_ids``.
+    """Build the rule class ``kind`` (its :data:`RULE_CLASSES` entry) over the items, aligned to ``item_ids``.
 
     :param items: the items table (``item_id``, features, ``rule__*`` columns).
     :param item_ids: the order of items in the label matrix.
-    :param features: the threshold class's features, in tie-break order.
+    :param features: the features of a class that needs them, in tie-break order.
     :param n_classes: ``K``, the number of classes.
     :raises RuleClassError: unknown kind, missing or unusable features, no listed rules.
     :raises ClassIndexError: a listed rule column holds a value outside ``0 .. K-1``.
     """
+    entry = rule_class_kind(kind)
     aligned = items.set_index(items["item_id"].astype(str)).reindex(item_ids)
-    if kind == "constant":
-        return ConstantRules(len(item_ids), n_classes)
-    if kind == "threshold":
+    needed: list[str] = []
+    if entry.needs_features:
         if not features:
-            raise RuleClassError("threshold class needs at least one feature")
+            raise RuleClassError(f"{kind} class needs at least one feature")
         absent = [f for f in features if f not in aligned.columns]
         if absent:
-            raise RuleClassError(f"threshold features not in the items table: {', '.join(absent)}")
-        return ThresholdRules(aligned[list(features)], n_classes)
-    if kind == "listed":
-        columns = [c for c in aligned.columns if str(c).startswith(RULE_COLUMN_PREFIX)]
-        return ListedRules(aligned[columns], n_classes)
-    raise RuleClassError(f"unknown rule class {kind!r}; expected one of {', '.join(RULE_CLASS_KINDS)}")
+            raise RuleClassError(f"{kind} features not in the items table: {', '.join(absent)}")
+        needed += list(features)
+    if entry.uses_rule_columns:
+        needed += _rule_columns(aligned.columns)
+    return entry.build(aligned[needed], len(item_ids), n_classes)

@@ -11,7 +11,9 @@ import yaml
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, create_model, field_validator, model_validator
 
 from truthsieve.core.incentives import DEFAULT_THRESHOLD_BUDGET
-from truthsieve.core.mechanisms import MECHANISMS
+from truthsieve.core.mechanisms import MECHANISM_REGISTRY
+from truthsieve.core.mechanism_registry import number_word
+from truthsieve.core.rules import RULE_CLASSES
 from truthsieve.core.flags import FLAG_CODES, THRESHOLDS, FlagThresholds
 from truthsieve.pipeline.classes import ClassAlphabet, check_class_names
 from truthsieve.exceptions import ConfigError
@@ -51,8 +53,15 @@ class _Strict(BaseModel):
 class RuleClassConfig(_Strict):
     """``rule_class``: which rules the consensus and the dictators choose from."""
 
-    kind: Literal["constant", "threshold", "listed"]
+    kind: str = Field(description="a rule class of truthsieve.core.rules.RULE_CLASSES")
     features: list[str] = Field(default_factory=list, description="threshold features, in tie-break order")
+
+    @field_validator("kind")
+    @classmethod
+    def _registered_kind(cls, value):
+        if value not in RULE_CLASSES:
+            raise ValueError(RULE_CLASSES.unknown(value))
+        return value
 
     @field_validator("features")
     @classmethod
@@ -67,8 +76,8 @@ class RuleClassConfig(_Strict):
 
     @model_validator(mode="after")
     def _features_for_threshold(self):
-        if self.kind == "threshold" and not self.features:
-            raise ValueError("rule_class.kind 'threshold' needs a non-empty 'features' list")
+        if RULE_CLASSES.get(self.kind).needs_features and not self.features:
+            raise ValueError(f"rule_class.kind {self.kind!r} needs a non-empty 'features' list")
         return self
 
 
@@ -166,12 +175,19 @@ class AlertSettings(_Strict):
 
 class Config(_Strict):
     rule_class: RuleClassConfig
-    mechanism: Literal[MECHANISMS]  # type: ignore[valid-type]
+    mechanism: str = Field(description="a mechanism of truthsieve.core.mechanisms.MECHANISM_REGISTRY")
     sources: list[SourceEntry] = Field(min_length=1)
     routing: RoutingPolicy = Field(default_factory=RoutingPolicy)
     analysis: AnalysisSettings = Field(default_factory=AnalysisSettings)
     alerts: AlertSettings = Field(default_factory=AlertSettings)
     classes: list[str] | None = Field(None, description="class names, index order; default two classes 0/1 (see pipeline/classes.py)")
+
+    @field_validator("mechanism")
+    @classmethod
+    def _registered_mechanism(cls, value):
+        if value not in MECHANISM_REGISTRY:
+            raise ValueError(MECHANISM_REGISTRY.unknown(value))
+        return value
 
     @field_validator("classes")
     @classmethod
@@ -188,19 +204,29 @@ class Config(_Strict):
         duplicates = sorted({s for s in ids if ids.count(s) > 1})
         if duplicates:
             raise ValueError(f"sources listed twice: {duplicates}")
-        if self.mechanism.startswith("two_rule") and self.rule_class.kind != "constant":
-            raise ValueError(f"mechanism {self.mechanism!r} needs rule_class.kind 'constant'")
-        if self.mechanism.startswith("two_rule") and self.classes is not None and len(self.classes) > 2:
-            raise ValueError(
-                f"mechanism {self.mechanism!r} chooses between exactly two rules, but classes has {len(self.classes)} "
-                "(so the constant class has as many rules); choose a dictator mechanism"
-            )
-        if self.mechanism == "erm" and self.routing.mode == "strategy_proof":
-            raise ValueError(
-                "mechanism 'erm' is not strategy-proof and cannot be used with routing.mode 'strategy_proof'; "
-                "choose a dictator or two-rule mechanism, or set routing.mode: guarded"
-            )
+        self._mechanism_fits()
         return self
+
+    def _mechanism_fits(self) -> None:
+        """The mechanism's registry entry against the rule class's and the routing mode."""
+        spec, kind = MECHANISM_REGISTRY.get(self.mechanism), self.rule_class.kind
+        accepted = spec.accepted_kinds()
+        if kind not in accepted:
+            raise ValueError(f"mechanism {self.mechanism!r} needs rule_class.kind {' or '.join(repr(k) for k in accepted)}")
+        size_for = RULE_CLASSES.get(kind).size_for_classes
+        n_classes = 2 if self.classes is None else len(self.classes)
+        if spec.rule_count is not None and size_for is not None and size_for(n_classes) != spec.rule_count:
+            others = [m.name for m in MECHANISM_REGISTRY if m.rule_count is None and kind in m.accepted_kinds() and m.strategy_proof]
+            raise ValueError(
+                f"mechanism {self.mechanism!r} chooses between exactly {number_word(spec.rule_count)} rules, but classes has {n_classes} "
+                f"(so the {kind} class has {size_for(n_classes)} rules); choose one of {', '.join(others)}"
+            )
+        if not spec.strategy_proof and self.routing.mode == "strategy_proof":
+            chosen = [m.name for m in MECHANISM_REGISTRY if m.strategy_proof]
+            raise ValueError(
+                f"mechanism {self.mechanism!r} is not strategy-proof and cannot be used with routing.mode 'strategy_proof'; "
+                f"choose one of {', '.join(chosen)}, or set routing.mode: guarded"
+            )
 
     def digest(self) -> str:
         """``sha256:`` of the canonical JSON of the validated configuration (every default filled in)."""
