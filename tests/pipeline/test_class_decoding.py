@@ -168,7 +168,7 @@ def test_naming_the_classes_changes_the_digest_and_leaving_them_out_does_not(tmp
         ("[reject, '1.5']", "mistaken"),
         ("[reject, 'nan']", "mistaken"),
         ("[reject, 'True']", "mistaken"),
-        ("[reject, 3]", "valid string"),
+        ("[reject, 3]", "must be a name (a string), not int 3"),
         ("reject", "valid list"),
     ],
 )

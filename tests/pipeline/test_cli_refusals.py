@@ -106,3 +106,18 @@ def test_a_listed_class_night_lacking_rule_columns_among_nights_that_have_them_i
     assert decision["route"] == "review"
     assert [(e["file"], e["code"]) for e in decision["errors"]] == [(f"batch_date={later}/items.parquet", "table_lacks_column")]
     assert (out / f"batch_date={later}" / "quarantine" / "items.parquet").read_bytes() == (folder / "items.parquet").read_bytes()
+
+
+@pytest.mark.parametrize(
+    "written, shown",
+    [("yes", "bool True"), ("off", "bool False"), ("3", "int 3"), ("1.5", "float 1.5"), ("null", "null None"), ("~", "null None")],
+)
+def test_a_class_name_yaml_reads_as_another_type_is_named_with_the_fix(inbox, tmp_path, written, shown):
+    # YAML 1.1 (PyYAML's safe loader) reads these unquoted words as bool, int, float or null
+    config = tmp_path / "c.yaml"
+    write_config(config)
+    config.write_text(config.read_text() + f"classes: [reject, feed, {written}]\n")
+    out = tmp_path / "out"
+    message = one_line_error(cli("screen", "--inbox", str(inbox), "--date", DATE, "--config", str(config), "--out", str(out)))
+    assert f"classes: Value error, class 2 must be a name (a string), not {shown}" in message and "quote the name" in message
+    assert not out.exists()

@@ -64,7 +64,10 @@ def check_class_names(names: Sequence[str]) -> list[str]:
         problems.append(f"at most {MAX_CLASSES} classes, not {len(names)}")
     for position, name in enumerate(names):
         if not isinstance(name, str):
-            problems.append(f"class {position} must be a name (a string), not {type(name).__name__}")
+            problems.append(
+                f"class {position} must be a name (a string), not {'null' if name is None else type(name).__name__} {name!r}"
+                " (YAML reads unquoted yes, no, on, off, true, false, numbers and null as other types: quote the name)"
+            )
         elif not name:
             problems.append(f"class {position} has an empty name")
         elif name != name.strip() or CONTROL.search(name):

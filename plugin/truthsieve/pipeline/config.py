@@ -173,10 +173,12 @@ class Config(_Strict):
     alerts: AlertSettings = Field(default_factory=AlertSettings)
     classes: list[str] | None = Field(None, description="class names, index order; default two classes 0/1 (see pipeline/classes.py)")
 
-    @field_validator("classes")
+    @field_validator("classes", mode="before")
     @classmethod
     def _usable_class_names(cls, value):
-        return value if value is None else check_class_names(value)
+        # before the str check: YAML reads unquoted yes, off, 3 or null as a bool, number or
+        # None, and the one line should say which class and how to fix it
+        return check_class_names(value) if isinstance(value, list) else value
 
     @property
     def class_alphabet(self) -> ClassAlphabet:
