@@ -121,3 +121,12 @@ def test_a_class_name_yaml_reads_as_another_type_is_named_with_the_fix(inbox, tm
     message = one_line_error(cli("screen", "--inbox", str(inbox), "--date", DATE, "--config", str(config), "--out", str(out)))
     assert f"classes: Value error, class 2 must be a name (a string), not {shown}" in message and "quote the name" in message
     assert not out.exists()
+
+
+@pytest.mark.parametrize("command", [["in-force"], ["in-force", "--json"], ["apply", "--items", "lots.parquet", "--write", "x.parquet"]])
+def test_a_mistyped_out_folder_is_refused_not_read_as_no_rule_in_force(tmp_path, command):
+    # `ledger --verify` and `verdict` already refuse it; in-force said "no rule in force" and exit 0
+    missing = tmp_path / "out-typo"
+    message = one_line_error(cli(command[0], "--out", str(missing), *command[1:]))
+    assert message == f"error: no such out folder: {missing}"
+    assert not missing.exists()
