@@ -6,6 +6,8 @@ A refused run (a configuration error, a date with no batch folder) must not crea
 
 from __future__ import annotations
 
+import json
+
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
@@ -100,8 +102,6 @@ def test_a_listed_class_night_lacking_rule_columns_among_nights_that_have_them_i
     out = tmp_path / "out"
     result = cli("backfill", "--inbox", str(inbox), "--from", DATE, "--to", later, "--config", str(config), "--out", str(out))
     assert result.returncode == 0, result.stderr
-    import json
-
     decision = json.loads((out / f"batch_date={later}" / "decision.json").read_text())
     assert decision["route"] == "review"
     assert [(e["file"], e["code"]) for e in decision["errors"]] == [(f"batch_date={later}/items.parquet", "table_lacks_column")]
