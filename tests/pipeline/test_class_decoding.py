@@ -168,7 +168,7 @@ def test_naming_the_classes_changes_the_digest_and_leaving_them_out_does_not(tmp
         ("[reject, '1.5']", "mistaken"),
         ("[reject, 'nan']", "mistaken"),
         ("[reject, 'True']", "mistaken"),
-        ("[reject, 3]", "valid string"),
+        ("[reject, 3]", "must be a name (a string), not int 3"),
         ("reject", "valid list"),
     ],
 )
@@ -186,3 +186,30 @@ def test_a_bad_class_list_exits_2_from_the_command_line(tmp_path):
     path.write_text(CONFIG + "classes: [reject, '2', reject]\n")
     result = cli("screen", "--inbox", str(tmp_path), "--date", "2026-12-01", "--config", str(path), "--out", str(tmp_path / "out"))
     assert result.returncode == 2 and len(result.stderr.strip().splitlines()) == 1 and "Traceback" not in result.stderr
+
+
+def test_each_bad_row_says_what_it_holds(tmp_path):
+    # README: an error record names file, row, column and what was found
+    names = through_parquet(tmp_path, pa.array(["feed", "Premium", "2", "premiun"]).dictionary_encode())
+    _, errors = decode_labels("f", names, GRADES)
+    assert [(e.row, e.message.split(" names no class")[0]) for e in errors] == [
+        (2, "label 'Premium'"), (3, "label '2'"), (4, "label 'premiun'"),
+    ]
+    assert "integer column" in errors[1].message and "integer column" not in errors[0].message
+    _, errors = decode_labels("f", through_parquet(tmp_path, pa.array([0, 4, 3, -1], pa.int16())), GRADES)
+    assert [(e.row, e.message) for e in errors] == [
+        (2, "label must be a class index 0..3, not 4"), (4, "label must be a class index 0..3, not -1"),
+    ]
+    _, errors = decode_rule_column("f", through_parquet(tmp_path, pa.array([1, 7], pa.int8()), "rule__x"), "rule__x", GRADES)
+    assert [(e.row, e.message) for e in errors] == [(2, "rule value must be a class index 0..3, not 7")]
+    # K = 2 keeps the binary words exactly (binary decision.json files stay byte for byte)
+    _, errors = decode_labels("f", through_parquet(tmp_path, pa.array([1, 2], pa.int8())), BINARY)
+    assert [(e.row, e.message) for e in errors] == [(2, "label must be 0 or 1")]
+
+
+def test_a_capped_list_of_bad_rows_still_ends_with_the_count_of_the_rest(tmp_path):
+    column = through_parquet(tmp_path, pa.array(["gold"] * (MAX_ROWS_PER_RULE + 3)))
+    _, errors = decode_labels("f", column, GRADES)
+    assert len(errors) == MAX_ROWS_PER_RULE + 1
+    assert errors[-1].row is None and errors[-1].message == "3 more rows break this rule"
+    assert errors[0].message.startswith("label 'gold' names no class")

@@ -31,7 +31,7 @@ from __future__ import annotations
 
 import re
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 import pyarrow as pa
@@ -64,7 +64,10 @@ def check_class_names(names: Sequence[str]) -> list[str]:
         problems.append(f"at most {MAX_CLASSES} classes, not {len(names)}")
     for position, name in enumerate(names):
         if not isinstance(name, str):
-            problems.append(f"class {position} must be a name (a string), not {type(name).__name__}")
+            problems.append(
+                f"class {position} must be a name (a string), not {'null' if name is None else type(name).__name__} {name!r}"
+                " (YAML reads unquoted yes, no, on, off, true, false, numbers and null as other types: quote the name)"
+            )
         elif not name:
             problems.append(f"class {position} has an empty name")
         elif name != name.strip() or CONTROL.search(name):
@@ -144,8 +147,17 @@ def _rows(mask) -> np.ndarray:
     return np.flatnonzero(np.asarray(pc.fill_null(mask, False)))
 
 
+def _showing_found(records: list[ErrorRecord], values: pa.Array, say) -> list[ErrorRecord]:
+    """Each row's record with its message from ``say(value found on that row)``."""
+    return [r if r.row is None else replace(r, message=say(values[r.row - 1].as_py())) for r in records]
+
+
 def _indices(relative_path: str, values: pa.Array, classes: ClassAlphabet, column: str, out_of_range: tuple[str, str]):
-    """Integer or bool values -> (indices, errors) for the rows that are not null."""
+    """Integer or bool values -> (indices, errors) for the rows that are not null.
+
+    With K > 2 each out-of-range record says the index found; the K = 2 message stays the
+    binary one, word for word (binary decisions are kept byte for byte).
+    """
     count = classes.count
     if pa.types.is_boolean(values.type):
         return pc.cast(values, pa.int8()).to_numpy(zero_copy_only=False), []
@@ -156,8 +168,19 @@ def _indices(relative_path: str, values: pa.Array, classes: ClassAlphabet, colum
     rows = _rows(outside)
     if len(rows):
         rule, message = out_of_range
-        return None, row_errors(relative_path, rows, column, rule, message)
+        records = row_errors(relative_path, rows, column, rule, message)
+        if count > 2:
+            records = _showing_found(records, values, lambda found: f"{message}, not {found}")
+        return None, records
     return pc.cast(pc.fill_null(values, 0), pa.int64()).to_numpy(zero_copy_only=False), []
+
+
+def _unknown_name_message(found: str, classes: ClassAlphabet) -> str:
+    hint = "; a class index belongs in an integer column, not in text" if found.strip().lstrip("+-").isdigit() else ""
+    return (
+        f"label {found!r} names no class; the classes are {', '.join(classes.names)} "
+        f"(names match exactly, case included){hint}"
+    )
 
 
 def decode_labels(
@@ -180,9 +203,9 @@ def decode_labels(
             values = values.dictionary_decode()
         found = pc.index_in(values, value_set=pa.array(classes.names, values.type))
         unknown = _rows(pc.and_(values.is_valid(), found.is_null()))
-        errors += row_errors(
-            relative_path, unknown, column_name, "unknown_class_name",
-            f"label names no class; the classes are {', '.join(classes.names)} (names match exactly, case included)",
+        errors += _showing_found(
+            row_errors(relative_path, unknown, column_name, "unknown_class_name", "label names no class"),
+            values, lambda found: _unknown_name_message(found, classes),
         )
         indices = pc.fill_null(found, 0).to_numpy(zero_copy_only=False)
     else:

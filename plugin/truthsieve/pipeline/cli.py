@@ -17,7 +17,7 @@ from pathlib import Path
 
 from truthsieve import __version__
 from truthsieve.exceptions import BatchLockedError, InputError
-from truthsieve.pipeline.locations import check_features_present, check_out_location
+from truthsieve.pipeline.locations import check_features_present, check_out_location, check_rule_columns_present
 from truthsieve.pipeline.ledger_cli import LEDGER_COMMANDS, _date, _seconds, add_ledger_commands, run_ledger_command
 
 EXIT_OK, EXIT_FAILURE, EXIT_INPUT, EXIT_LOCKED = 0, 1, 2, 3
@@ -138,8 +138,22 @@ def screen(inbox: Path, date: str, config, out: Path, lock_timeout: float, worke
 
 
 def _check_features(inbox: Path, dates: Sequence[str], config) -> None:
-    if config.rule_class.kind == "threshold":
+    """Refuse, as a configuration error, columns the rule class's registry entry needs and no items table has."""
+    from truthsieve.core.rules import RULE_CLASSES
+
+    entry = RULE_CLASSES.get(config.rule_class.kind)  # validated by the config: always registered
+    assert entry is not None
+    if entry.needs_features:
         check_features_present(inbox, dates, config.rule_class.features)
+    if entry.uses_rule_columns:
+        check_rule_columns_present(inbox, dates)
+
+
+def _refuse_missing_batch(inbox: Path, date: str) -> None:
+    from truthsieve.pipeline.layout import batch_dir
+
+    if not batch_dir(inbox, date).is_dir():
+        raise InputError(f"{batch_dir(inbox, date)}: no such batch folder")
 
 
 def backfill(
@@ -149,12 +163,12 @@ def backfill(
     from truthsieve.pipeline.layout import batch_dir
 
     config = config or load_config(config_path)
-    check_out_location(inbox, out)
     present = [d for d in dates if batch_dir(inbox, d).is_dir()]
     if not present:
         print(f"error: no batch folders under {inbox} for {dates[0]} to {dates[-1]}", file=sys.stderr)
         return EXIT_INPUT
     _check_features(inbox, present, config)
+    check_out_location(inbox, out)  # last: a refused run leaves no --out folder behind
     results = []
     for k, date in enumerate(present):
         _progress(k, len(present), date)
@@ -179,8 +193,9 @@ def run(argv: Sequence[str] | None = None) -> int:
 
     if args.command == "screen":
         config = load_config(args.config)
-        check_out_location(args.inbox, args.out)
+        _refuse_missing_batch(args.inbox, args.date)
         _check_features(args.inbox, [args.date], config)
+        check_out_location(args.inbox, args.out)  # last: a refused run leaves no --out folder behind
         result = screen(args.inbox, args.date, config, args.out, args.lock_timeout, args.workers)
         write_index(args.out)
         print(json.dumps(result.decision, sort_keys=True, indent=2) if args.json else summary(result.decision, result.output))

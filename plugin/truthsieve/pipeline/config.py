@@ -189,10 +189,12 @@ class Config(_Strict):
             raise ValueError(MECHANISM_REGISTRY.unknown(value))
         return value
 
-    @field_validator("classes")
+    @field_validator("classes", mode="before")
     @classmethod
     def _usable_class_names(cls, value):
-        return value if value is None else check_class_names(value)
+        # before the str check: YAML reads unquoted yes, off, 3 or null as a bool, number or
+        # None, and the one line should say which class and how to fix it
+        return check_class_names(value) if isinstance(value, list) else value
 
     @property
     def class_alphabet(self) -> ClassAlphabet:

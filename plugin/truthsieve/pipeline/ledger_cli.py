@@ -169,6 +169,8 @@ def run_ledger_command(args) -> int:
         print(f"night {args.date}: its rule revoked by {args.by.strip()} (human override of the mechanism)")
         print(_describe(state, args.out))
         return 0
+    if args.command in ("in-force", "apply") and not Path(args.out).is_dir():
+        raise InputError(f"no such out folder: {args.out}")  # a mistyped --out is not "no rule in force"
     if args.command == "in-force":
         state = verdicts.in_force(args.out, args.as_of)
         print(json.dumps(state, sort_keys=True, indent=2) if args.json else _describe(state, args.out))

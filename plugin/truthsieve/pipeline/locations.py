@@ -2,8 +2,9 @@
 
 The output root must never equal, contain or lie inside the inbox: publishing renames
 ``<out>/batch_date=D`` away, and with ``--out`` equal to ``--inbox`` that would be the
-night's input folder. Configured features must exist in at least one items table of
-the nights asked for; otherwise the configuration is wrong, not the data.
+night's input folder. Configured features (and, for the listed class, some ``rule__*``
+column) must exist in at least one items table of the nights asked for; otherwise the
+configuration is wrong, not the data.
 """
 
 from __future__ import annotations
@@ -44,6 +45,26 @@ def check_out_location(inbox: str | Path, out: str | Path) -> Path:
     return out
 
 
+def _schemas(inbox: Path, dates: Sequence[str]) -> list[list[str]]:
+    """The column names of every readable items table of ``dates`` inside the inbox (footers only)."""
+    import pyarrow.parquet as pq  # here: the command line starts without pyarrow
+
+    found = []
+    for date in dates:
+        path = batch_dir(inbox, date) / ITEMS_FILE
+        if not path.is_file() or not inside(path, inbox):
+            continue
+        try:
+            found.append(pq.read_schema(os.path.realpath(path)).names)
+        except Exception:  # noqa: BLE001 - any unreadable footer: the night's own screen reports it
+            continue
+    return found
+
+
+def _nights(dates: Sequence[str]) -> str:
+    return dates[0] if len(dates) == 1 else f"{dates[0]} to {dates[-1]}"
+
+
 def check_features_present(inbox: str | Path, dates: Sequence[str], features: Iterable[str]) -> None:
     """Refuse configured features that no items table of ``dates`` has.
 
@@ -53,26 +74,35 @@ def check_features_present(inbox: str | Path, dates: Sequence[str], features: It
 
     :raises ConfigError: naming ``rule_class.features`` and each column no night has.
     """
-    import pyarrow.parquet as pq  # here: the command line starts without pyarrow
-
     inbox, features = Path(inbox), list(features)
     if not features:
         return
-    seen: set[str] = set()
-    schemas = 0
-    for date in dates:
-        path = batch_dir(inbox, date) / ITEMS_FILE
-        if not path.is_file() or not inside(path, inbox):
-            continue
-        try:
-            seen.update(pq.read_schema(os.path.realpath(path)).names)
-        except Exception:  # noqa: BLE001 - any unreadable footer: the night's own screen reports it
-            continue
-        schemas += 1
+    schemas = _schemas(inbox, dates)
+    seen = {name for names in schemas for name in names}
     missing = [f for f in features if f not in seen]
     if schemas and missing:
-        nights = dates[0] if len(dates) == 1 else f"{dates[0]} to {dates[-1]}"
         raise ConfigError(
             f"rule_class.features: column{'s' if len(missing) > 1 else ''} {', '.join(missing)} "
-            f"in no items table of {nights}; check the configuration's spelling"
+            f"in no items table of {_nights(dates)}; check the configuration's spelling"
+        )
+
+
+def check_rule_columns_present(inbox: str | Path, dates: Sequence[str]) -> None:
+    """Refuse ``rule_class.kind: listed`` when no items table of ``dates`` has a ``rule__*`` column.
+
+    The listed class names no columns, so when no night offers any candidate rule the
+    configuration is what is wrong (as with a feature no items table has). A night that
+    lacks them while another night of the range has them is that night's input error
+    (``table_lacks_column``, its items table quarantined). Same reading rules as
+    :func:`check_features_present`.
+
+    :raises ConfigError: naming ``rule_class.kind`` and the nights.
+    """
+    from truthsieve.core.rule_class import RULE_COLUMN_PREFIX  # here: the command line starts without numpy
+
+    schemas = _schemas(Path(inbox), dates)
+    if schemas and not any(name.startswith(RULE_COLUMN_PREFIX) for names in schemas for name in names):
+        raise ConfigError(
+            f"rule_class.kind 'listed': no items table of {_nights(dates)} has a rule__<name> column "
+            "(the candidate rules); add them to items.parquet or choose another rule class"
         )
