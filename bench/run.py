@@ -92,6 +92,18 @@ def measure_screen(n_items: int, n_sources: int, coverage: float, repeat: int) -
     return {"seconds": {"full_screen": statistics.median(times)}, "peak_rss_mib": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024}
 
 
+def timer(times: dict[str, list[float]]):
+    """``timed(name, call)``: call, append its wall time to ``times[name]``, return its value."""
+
+    def timed(name, call):
+        start = time.perf_counter()
+        value = call()
+        times.setdefault(name, []).append(time.perf_counter() - start)
+        return value
+
+    return timed
+
+
 def measure_startup(repeat: int) -> dict:
     """Wall time of importing the CLI in a fresh process, and the slowest imports."""
     walls, cumulative = [], []
@@ -123,12 +135,7 @@ def measure(n_items: int, listed_rules: int, repeat: int) -> dict:
         inbox = Path(tmp)
         config = Config.model_validate(make_inbox(inbox, n_items, listed_rules))
         times: dict[str, list[float]] = {}
-
-        def timed(name, call):
-            start = time.perf_counter()
-            value = call()
-            times.setdefault(name, []).append(time.perf_counter() - start)
-            return value
+        timed = timer(times)
 
         for _ in range(repeat):
             batch = inbox / "batch_date=2026-01-01"
@@ -196,12 +203,7 @@ def measure_classes(n_items: int, n_classes: int, repeat: int) -> dict:
     labels = pd.concat(frames, ignore_index=True)
     weights = {f"s{s:04d}": 1.0 + s % 3 for s in range(N_SOURCES)}
     times: dict[str, list[float]] = {}
-
-    def timed(name, call):
-        start = time.perf_counter()
-        value = call()
-        times.setdefault(name, []).append(time.perf_counter() - start)
-        return value
+    timed = timer(times)
 
     for _ in range(repeat):
         start = time.perf_counter()

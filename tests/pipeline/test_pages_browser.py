@@ -44,6 +44,29 @@ def chromium(*args, profile, timeout=180):
     return subprocess.run([*base, *args], capture_output=True, text=True, timeout=timeout)
 
 
+def render_and_measure(source, width: int, tmp_path, name: str = "page") -> tuple[dict, str]:
+    """Screenshot ``source`` (not blank, no console error), then the sizes MEASURE reports and the DOM.
+
+    The measured copy sits beside the original, so relative links stay the same.
+    """
+    from PIL import Image
+
+    shot = tmp_path / f"{name}-{width}.png"
+    result = chromium(f"--window-size={width},1400", f"--screenshot={shot}", source.as_uri(), profile=tmp_path / "p1")
+    print(f"screenshot: {shot}")
+    assert shot.is_file(), result.stderr[-2000:]
+    assert "Uncaught" not in result.stderr and "CONSOLE" not in result.stderr, result.stderr[-2000:]
+    low, high = Image.open(shot).convert("L").getextrema()
+    assert high - low > 100  # not blank
+    probe = source.with_name(f"measure-{name}-{width}.html")
+    probe.write_text(source.read_text().replace("</body>", MEASURE + "</body>"))
+    dom = chromium(f"--window-size={width},1400", "--virtual-time-budget=5000", "--dump-dom", probe.as_uri(), profile=tmp_path / "p2").stdout
+    probe.unlink()
+    found = re.search(r"<pre id=\"measured\">(.*?)</pre>", dom, re.S)
+    assert found, dom[-500:]
+    return json.loads(found.group(1).replace("&quot;", '"').replace("&amp;", "&")), dom
+
+
 @pytest.fixture(scope="module")
 def demo_out(tmp_path_factory):
     if BROWSER is None:
@@ -64,26 +87,9 @@ def demo_out(tmp_path_factory):
 @pytest.mark.parametrize("width", [1280, 800])
 @pytest.mark.parametrize("name", ["aggregate", "review", "quarantine", "index"])
 def test_page_renders_unclipped_without_errors(demo_out, name, width, tmp_path):
-    from PIL import Image
-
     _, pages = demo_out
     source = pages[name]
-    shot = tmp_path / f"{name}-{width}.png"
-    result = chromium(f"--window-size={width},1400", f"--screenshot={shot}", source.as_uri(), profile=tmp_path / "p1")
-    print(f"screenshot: {shot}")
-    assert shot.is_file(), result.stderr[-2000:]
-    assert "Uncaught" not in result.stderr and "CONSOLE" not in result.stderr, result.stderr[-2000:]
-    image = Image.open(shot).convert("L")
-    low, high = image.getextrema()
-    assert high - low > 100  # not blank
-    # measured copy beside the original (same folder, so relative links stay the same)
-    probe = source.with_name(f"measure-{name}-{width}.html")
-    probe.write_text(source.read_text().replace("</body>", MEASURE + "</body>"))
-    dom = chromium(f"--window-size={width},1400", "--virtual-time-budget=5000", "--dump-dom", probe.as_uri(), profile=tmp_path / "p2").stdout
-    probe.unlink()
-    found = re.search(r"<pre id=\"measured\">(.*?)</pre>", dom, re.S)
-    assert found, dom[-500:]
-    measured = json.loads(found.group(1).replace("&quot;", '"').replace("&amp;", "&"))
+    measured, _ = render_and_measure(source, width, tmp_path, name)
     page_width, window = measured["page"]
     assert page_width <= window, f"the page itself scrolls sideways: {page_width} > {window}"
     assert measured["tables"], "no table measured"

@@ -144,6 +144,23 @@ def normalised_weights(source_weights: Mapping[str, float], present: Sequence[st
     return result
 
 
+def sorted_items(items: pd.DataFrame) -> tuple[np.ndarray, FloatArray]:
+    """Item ids sorted (the code order of every array in the core) and their weights ``u_j``
+    (1 where the table has no ``item_weight``).
+
+    :raises WeightError: a weight that is not finite or is negative.
+    """
+    raw_ids = as_ids(items["item_id"])
+    order = np.argsort(raw_ids, kind="stable")
+    if "item_weight" in items.columns:
+        weights = items["item_weight"].to_numpy(dtype=np.float64)[order]
+    else:
+        weights = np.ones(len(raw_ids))
+    if not np.isfinite(weights).all() or (weights < 0).any():
+        raise WeightError("item weights must be finite and non-negative")
+    return raw_ids[order], weights
+
+
 def build_label_matrix(
     labels: pd.DataFrame,
     items: pd.DataFrame,
@@ -170,15 +187,7 @@ def build_label_matrix(
     """
     if len(items) == 0:
         raise NoItemsError("the items table has no rows")
-    raw_ids = as_ids(items["item_id"])
-    order = np.argsort(raw_ids, kind="stable")
-    item_ids = raw_ids[order]
-    if "item_weight" in items.columns:
-        item_weights = items["item_weight"].to_numpy(dtype=np.float64)[order]
-    else:
-        item_weights = np.ones(len(item_ids))
-    if not np.isfinite(item_weights).all() or (item_weights < 0).any():
-        raise WeightError("item weights must be finite and non-negative")
+    item_ids, item_weights = sorted_items(items)
 
     # Ids stay in Arrow (no Python string per label): one hash join for items, one
     # dictionary encoding for sources.

@@ -28,13 +28,13 @@ from truthsieve.core import statistics as core_statistics
 from truthsieve.core.agreement import batch_agreement
 from truthsieve.core.dawid_skene import DawidSkeneFit, dawid_skene
 from truthsieve.core.incentives import SourceIncentive, analyse_source, context_from_totals, incentive_context, source_incentive
-from truthsieve.core.labels import LabelMatrix, as_ids, build_label_matrix, id_array, normalised_weights
+from truthsieve.core.labels import LabelMatrix, as_ids, build_label_matrix, id_array, normalised_weights, sorted_items
 from truthsieve.core.mechanisms import ConsensusFit, MechanismResult, fit_consensus, run_mechanism
 from truthsieve.core.rules import RuleClass, build_rule_class
 from truthsieve.core.sampling import items_needed
 from truthsieve.core.source_checks import SourceHistory, SourceReport, assess_sources
 from truthsieve.core.statistics import FloatArray, SourceLabels
-from truthsieve.exceptions import ClassIndexError, UnknownReferenceError, WeightError
+from truthsieve.exceptions import ClassIndexError, UnknownReferenceError
 from truthsieve.pipeline.config import Config
 
 
@@ -86,15 +86,7 @@ class NightItems:
 
 def night_items(items: pd.DataFrame, config: Config, *, n_classes: int | None = None) -> NightItems:
     """Item codes, weights and rule class, exactly as :func:`prepare` orders them."""
-    raw_ids = as_ids(items["item_id"])
-    order = np.argsort(raw_ids, kind="stable")
-    item_ids = raw_ids[order]
-    if "item_weight" in items.columns:
-        weights = items["item_weight"].to_numpy(dtype=np.float64)[order]
-    else:
-        weights = np.ones(len(item_ids))
-    if not np.isfinite(weights).all() or (weights < 0).any():
-        raise WeightError("item weights must be finite and non-negative")
+    item_ids, weights = sorted_items(items)
     k = class_count(config, n_classes)
     rule_class = build_rule_class(config.rule_class.kind, items, item_ids, config.rule_class.features, k)
     return NightItems(item_ids, weights, rule_class)
