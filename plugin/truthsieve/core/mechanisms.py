@@ -174,10 +174,7 @@ def mechanism_spec(name: str) -> MechanismSpec:
 
     :raises MechanismError: unknown name (the message lists the registered ones).
     """
-    spec = MECHANISM_REGISTRY.get(name)
-    if spec is None:
-        raise MechanismError(MECHANISM_REGISTRY.unknown(name))
-    return spec
+    return MECHANISM_REGISTRY.require(name, MechanismError)
 
 
 def _dictator(name: str) -> DictatorLottery:

@@ -54,6 +54,13 @@ class Registry(Generic[EntryT]):
     def get(self, name: str) -> EntryT | None:
         return self._entries.get(name)
 
+    def require(self, name: str, error: type[Exception]) -> EntryT:
+        """The entry ``name``; ``error`` with the one-line :meth:`unknown` message when none is registered."""
+        entry = self._entries.get(name)
+        if entry is None:
+            raise error(self.unknown(name))
+        return entry
+
     def unknown(self, name: object) -> str:
         """The one-line message for a name that is not registered, listing those that are."""
         return f"unknown {self.what} {name!r}; expected one of {', '.join(self._entries)}"

@@ -172,10 +172,7 @@ def rule_class_kind(kind: str) -> RuleClassKind:
 
     :raises RuleClassError: unknown kind (the message lists the registered ones).
     """
-    entry = RULE_CLASSES.get(kind)
-    if entry is None:
-        raise RuleClassError(RULE_CLASSES.unknown(kind))
-    return entry
+    return RULE_CLASSES.require(kind, RuleClassError)
 
 
 def build_rule_class(
