@@ -164,7 +164,7 @@ def apply_rule(
         raise InputError(f"labels must be one of {', '.join(LABEL_FORMS)}, not {labels!r}")
     if labels == "names" and classes is None:
         raise InputError("writing class names needs the configuration (--config FILE), whose classes name them")
-    if labels == "names" and classes.names is None:
+    if labels == "names" and classes is not None and classes.names is None:
         raise InputError(f"--labels names needs a configuration with classes; {config_name} has none (write --labels indices)")
     items_path, write_path = Path(items_path), Path(write_path)
     state = in_force(out, as_of)
