@@ -87,6 +87,33 @@ def test_a_config_error_fails_the_task_at_once(tmp_path, review_night):
         operator.execute({})
 
 
+@pytest.mark.parametrize(
+    "rule_class, words",
+    [({"kind": "listed"}, ["rule_class.kind 'listed'", "rule__<name>"]), ({"kind": "threshold", "features": ["protein_pct"]}, ["rule_class.features", "protein_pct"])],
+)
+def test_check_items_fails_at_once_with_the_clis_line_when_the_night_lacks_configured_columns(tmp_path, rule_class, words):
+    # the items table has item_id, moisture_pct, falling_number_s: no rule__* column, no protein_pct.
+    # The command line refuses this configuration before screening (exit 2, one line); the DAG
+    # run must fail its check_items task at once (not retried) with the same line.
+    from airflow.sdk.exceptions import AirflowFailException
+
+    from truthsieve.airflow import CheckItemsOperator
+    from truthsieve.airflow import storage
+    from truthsieve.pipeline import night
+
+    inbox, config, out = tmp_path / "inbox", write_config(tmp_path / "c.yaml", rule_class=rule_class), tmp_path / "out"
+    write_batch(inbox, DATE, seed=5, n_items=12)
+    refused = cli("screen", "--inbox", str(inbox), "--date", DATE, "--config", str(config), "--out", str(tmp_path / "cli-out"))
+    assert refused.returncode == 2 and len(refused.stderr.strip().splitlines()) == 1, refused.stderr
+    line = refused.stderr.strip().removeprefix("error: ")
+    assert all(w in line for w in words) and DATE in line
+    paths = {"inbox": str(inbox), "batch_date": DATE, "config_path": str(config), "out": str(out)}
+    night.start_night(storage.store_for(paths["inbox"], paths["out"]), DATE)
+    with pytest.raises(AirflowFailException) as failed:
+        CheckItemsOperator(task_id="check_items", **paths).execute({"ds": DATE})
+    assert str(failed.value) == f"ConfigError: {line}"
+
+
 def test_a_relative_local_uri_is_refused_instead_of_resolving_under_the_cwd(review_night):
     from airflow.sdk.exceptions import AirflowFailException
 

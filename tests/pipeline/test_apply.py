@@ -17,8 +17,13 @@ from truthsieve.pipeline.outputs import batch_output
 from truthsieve.pipeline.verdicts import record_publication
 
 
-def put_in_force(out: Path, date: str, rule: dict) -> None:
-    data = json.dumps({"batch_date": date, "route": "aggregate", "draw": {"rule": rule}}, sort_keys=True).encode()
+def put_in_force(out: Path, date: str, rule: dict, classes: list[str] | None = None) -> None:
+    """Publish a synthetic aggregated night whose drawn rule is ``rule``; its decision.json
+    records ``classes`` as a K-class night does (none: a binary night, as decision.json omits it)."""
+    decision = {"batch_date": date, "route": "aggregate", "draw": {"rule": rule}}
+    if classes is not None:
+        decision["classes"] = list(classes)
+    data = json.dumps(decision, sort_keys=True).encode()
     batch_output(out, date).mkdir(parents=True, exist_ok=True)
     (batch_output(out, date) / "decision.json").write_bytes(data)
     record_publication(out, date, data)

@@ -41,8 +41,9 @@ def test_the_default_output_is_unchanged(tmp_path, case):
         assert produced.read_bytes() == expected.read_bytes()
 
 
-def grading_night(tmp_path, rule: dict, **columns) -> tuple[Path, Path]:
-    put_in_force(tmp_path / "out", "2026-12-01", rule)
+def grading_night(tmp_path, rule: dict, classes=GRADES.names, **columns) -> tuple[Path, Path]:
+    """A night screened with ``classes`` (the four grades unless given) whose rule is in force."""
+    put_in_force(tmp_path / "out", "2026-12-01", rule, classes)
     return tmp_path / "out", items(tmp_path / "lots.parquet", **columns)
 
 
@@ -76,19 +77,52 @@ def test_a_listed_value_outside_the_classes_is_refused_naming_file_row_and_colum
     assert not (tmp_path / "x.parquet").exists()
 
 
-def test_a_rule_of_a_class_the_configuration_lacks_is_refused(tmp_path):
-    # class 2 is the first index outside 0..1
-    out, source = grading_night(tmp_path, {"kind": "constant", "label": 2}, moisture_pct=[13.0])
+def test_a_configuration_of_other_classes_is_refused(tmp_path):
+    # the night was screened with three classes; a two-class configuration is another batch's
+    three = ("reject", "feed", "milling")
+    out, source = grading_night(tmp_path, {"kind": "constant", "label": 2}, classes=three, moisture_pct=[13.0])
+    with pytest.raises(InputError, match=r"has classes \[reject, accept\], but the rule in force since 2026-12-01 was fitted with classes \[reject, feed, milling\]"):
+        apply_rule(out, source, tmp_path / "x.parquet", classes=ClassAlphabet(("reject", "accept")))
+    # same count, other names or order: still another configuration
+    with pytest.raises(InputError, match="was fitted with classes"):
+        apply_rule(out, source, tmp_path / "x.parquet", classes=ClassAlphabet(("reject", "milling", "feed")))
+    assert not (tmp_path / "x.parquet").exists()
+    apply_rule(out, source, tmp_path / "x.parquet", classes=ClassAlphabet(three), labels="names")
+    assert pq.read_table(tmp_path / "x.parquet").column("label").to_pylist() == ["milling"]
+
+
+def test_a_binary_night_refuses_a_configuration_with_classes_and_the_reverse(tmp_path):
+    # a binary rule's 0/1 fit inside 0..3, so only the recorded classes can tell the batches apart
+    binary = {"kind": "threshold", "feature": "moisture_pct", "cut": 14.5, "above": 0}
+    out, source = grading_night(tmp_path / "b", binary, classes=None, moisture_pct=[13.0, 15.0])
+    with pytest.raises(InputError, match=r"has classes \[reject, feed, milling, premium\], but .* was fitted with no classes \(binary, 0/1\)"):
+        apply_rule(out, source, tmp_path / "x.parquet", classes=GRADES)
+    apply_rule(out, source, tmp_path / "x.parquet", classes=ClassAlphabet())  # a configuration without classes
+    assert pq.read_table(tmp_path / "x.parquet").column("label").to_pylist() == [1, 0]  # 13.0 -> below = 1, 15.0 -> above = 0
+    out, source = grading_night(tmp_path / "k", binary, moisture_pct=[13.0])
+    with pytest.raises(InputError, match=r"has no classes \(binary, 0/1\), but .* was fitted with classes \[reject, feed, milling, premium\]"):
+        apply_rule(out, source, tmp_path / "y.parquet", classes=ClassAlphabet())
+
+
+def test_a_rule_outside_its_own_nights_classes_is_still_refused(tmp_path):
+    # a hand-edited decision.json: the rule gives class 2, the night records two classes (0..1)
+    out, source = grading_night(tmp_path, {"kind": "constant", "label": 2}, classes=("reject", "accept"), moisture_pct=[13.0])
     with pytest.raises(InputError, match="gives class 2, but the configuration has 2 classes"):
         apply_rule(out, source, tmp_path / "x.parquet", classes=ClassAlphabet(("reject", "accept")))
-    apply_rule(out, source, tmp_path / "x.parquet", classes=ClassAlphabet(("reject", "feed", "milling")), labels="names")
-    assert pq.read_table(tmp_path / "x.parquet").column("label").to_pylist() == ["milling"]
 
 
 def test_names_need_an_alphabet(tmp_path):
     out, source = grading_night(tmp_path, {"kind": "constant", "label": 1}, moisture_pct=[13.0])
     with pytest.raises(InputError, match="--config"):
         apply_rule(out, source, tmp_path / "x.parquet", labels="names")
+
+
+def test_names_need_a_configuration_with_classes(tmp_path):
+    # without classes the two classes have no names: writing "0"/"1" as names would be a guess
+    out, source = grading_night(tmp_path, {"kind": "constant", "label": 1}, classes=None, moisture_pct=[13.0])
+    with pytest.raises(InputError, match="^--labels names needs a configuration with classes"):
+        apply_rule(out, source, tmp_path / "x.parquet", classes=ClassAlphabet(), labels="names")
+    assert not (tmp_path / "x.parquet").exists()
 
 
 def test_the_command_line_writes_names_from_the_config_and_refuses_in_one_line(tmp_path):
@@ -109,3 +143,29 @@ def test_the_command_line_writes_names_from_the_config_and_refuses_in_one_line(t
     assert refused.returncode == 2 and len(refused.stderr.strip().splitlines()) == 1 and "--config" in refused.stderr
     unknown = cli(*base, "--labels", "words")
     assert unknown.returncode == 2 and len(unknown.stderr.strip().splitlines()) == 1
+
+
+CONFIG = Path(__file__).resolve().parents[2] / "config"
+
+
+def test_the_command_line_refuses_the_grades_configuration_on_binary_nights_in_one_line(tmp_path):
+    # the new-user review's case: out/demo's nights are binary, config/grades.yaml names four classes
+    out, source = grading_night(tmp_path, {"kind": "threshold", "feature": "moisture_pct", "cut": 14.5, "above": 0}, classes=None, moisture_pct=[13.0])
+    target = tmp_path / "a.parquet"
+    refused = cli("apply", "--out", str(out), "--items", str(source), "--write", str(target), "--config", str(CONFIG / "grades.yaml"))
+    assert refused.returncode == 2 and len(refused.stderr.strip().splitlines()) == 1, refused.stderr
+    for words in ("grades.yaml has classes [reject, feed, milling, premium]", "fitted with no classes (binary, 0/1)", "2026-12-01"):
+        assert words in refused.stderr
+    assert not target.exists()
+    accepted = cli("apply", "--out", str(out), "--items", str(source), "--write", str(target), "--config", str(CONFIG / "demo.yaml"))
+    assert accepted.returncode == 0, accepted.stderr
+    assert pq.read_table(target).column("label").to_pylist() == [1]  # 13.0 is not above 14.5: below = 1 - above = 1
+
+
+def test_the_command_line_refuses_names_from_a_configuration_without_classes(tmp_path):
+    out, source = grading_night(tmp_path, {"kind": "constant", "label": 1}, classes=None, moisture_pct=[13.0])
+    target = tmp_path / "a.parquet"
+    refused = cli("apply", "--out", str(out), "--items", str(source), "--write", str(target), "--config", str(CONFIG / "demo.yaml"), "--labels", "names")
+    assert refused.returncode == 2 and len(refused.stderr.strip().splitlines()) == 1, refused.stderr
+    assert refused.stderr.startswith("error: --labels names needs a configuration with classes") and "demo.yaml" in refused.stderr
+    assert not target.exists()

@@ -14,6 +14,7 @@ import re
 import shutil
 from pathlib import Path
 
+import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
@@ -165,3 +166,47 @@ def test_an_unreadable_items_table_is_quarantined_from_its_bytes_and_the_night_g
     assert {"source_id": None, "files": [f"batch_date={DATE}/items.parquet"]} in published.decision["quarantined"]
     copy = tmp_path / "out" / f"batch_date={DATE}" / "quarantine" / "items.parquet"
     assert copy.read_bytes() == b"PAR1 but not really"
+
+
+def _night_without_rule_columns(tmp_path):
+    inbox = tmp_path / "inbox"
+    write_batch(inbox, DATE, seed=5, n_items=12)  # items.parquet: item_id, moisture_pct, falling_number_s
+    return inbox
+
+
+@pytest.mark.parametrize(
+    "rule_class, words, code",
+    [
+        ({"kind": "listed"}, ["rule_class.kind 'listed'", "rule__<name>", DATE], "table_lacks_column"),
+        ({"kind": "threshold", "features": ["moisture_pct", "protein_pct"]}, ["rule_class.features", "protein_pct", DATE], "table_lacks_feature"),
+    ],
+)
+def test_check_items_refuses_columns_the_night_lacks_as_a_configuration_error(tmp_path, rule_class, words, code):
+    # the command line's check (cli._check_features), now also the first thing check_items does:
+    # an Airflow run sees one night, so that night's items table is the whole range
+    from truthsieve.exceptions import ConfigError
+
+    inbox, out = _night_without_rule_columns(tmp_path), tmp_path / "out"
+    config = load_config(write_config(tmp_path / "c.yaml", rule_class=rule_class))
+    store = LocalStore(inbox, out)
+    night.start_night(store, DATE)
+    with pytest.raises(ConfigError) as refused:
+        night.check_items(store, DATE, config)
+    assert "\n" not in str(refused.value) and all(w in str(refused.value) for w in words)
+    with pytest.raises(work_files.StepNotRunError):  # refused before anything reached the work area
+        work_files.read_items(store, DATE)
+    # the command line checked the whole range itself: the night's own input error, quarantined
+    check = night.check_items(store, DATE, config, columns_checked=True)
+    assert not check.valid and [e.code for e in check.errors] == [code]
+
+
+def test_check_items_accepts_a_listed_night_with_rule_columns(tmp_path):
+    inbox, out = _night_without_rule_columns(tmp_path), tmp_path / "out"
+    items = inbox / f"batch_date={DATE}" / "items.parquet"
+    table = pq.read_table(items)
+    dry = pa.array(table.column("moisture_pct").to_numpy() <= 14.0)
+    pq.write_table(table.append_column("rule__dry", dry), items)
+    config = load_config(write_config(tmp_path / "c.yaml", rule_class={"kind": "listed"}))
+    store = LocalStore(inbox, out)
+    night.start_night(store, DATE)
+    assert night.check_items(store, DATE, config).valid

@@ -9,9 +9,12 @@ file's schema metadata carries the whole of ``in_force.json``: rule, since, ledg
 Class names or indices (``--labels`` on the command line, ``labels`` here): ``indices``
 (the default) writes ``label`` as int16 class indices, byte for byte as before K classes;
 ``names`` writes each class's name from the configuration's ``classes`` (dictionary
-encoded: the names are stored once). With an alphabet given (``--config``), the rule's
-classes and a listed rule's ``rule__<name>`` values are checked against ``0..K-1`` and
-the file's metadata also carries ``truthsieve.classes`` (the names, in index order).
+encoded: the names are stored once; a configuration without ``classes`` has no names, so
+``names`` is refused). With an alphabet given (``--config``), its ``classes`` must be those
+the in-force night's ``decision.json`` recorded (none for a binary night: a binary rule's
+0/1 would fit inside any alphabet, so the indices alone cannot tell), the rule's classes and
+a listed rule's ``rule__<name>`` values are checked against ``0..K-1``, and the file's
+metadata also carries ``truthsieve.classes`` (the names, in index order).
 """
 
 from __future__ import annotations
@@ -29,6 +32,7 @@ import pyarrow.parquet as pq
 from truthsieve.core.rules import RULE_COLUMN_PREFIX
 from truthsieve.exceptions import InputError
 from truthsieve.pipeline.classes import ClassAlphabet, class_name_array, decode_rule_column
+from truthsieve.pipeline.outputs import batch_output
 from truthsieve.pipeline.verdicts import in_force
 
 
@@ -72,6 +76,26 @@ def check_rule_classes(rule: dict, classes: ClassAlphabet, since: str | None = N
         raise InputError(
             f"the rule in force{when} gives class {outside[0]}, but the configuration has {classes.count} classes "
             f"(0..{classes.count - 1}); is --config the one its nights were screened with?"
+        )
+
+
+def _describe_classes(names) -> str:
+    return "no classes (binary, 0/1)" if names is None else f"classes [{', '.join(names)}]"
+
+
+def check_night_classes(out: str | Path, since: str, classes: ClassAlphabet, config_name: str = "the configuration") -> None:
+    """Refuse a configuration whose ``classes`` are not those the in-force night ``since``
+    recorded in its ``decision.json`` (``classes`` absent: a binary night, configured without)."""
+    path = batch_output(out, since) / "decision.json"
+    try:
+        recorded = json.loads(path.read_text()).get("classes")
+    except (OSError, ValueError) as error:
+        raise InputError(f"{path}: cannot read the in-force night's decision to check its classes ({error})") from None
+    wanted = None if recorded is None else tuple(recorded)
+    if classes.names != wanted:
+        raise InputError(
+            f"{config_name} has {_describe_classes(classes.names)}, but the rule in force since {since} was fitted "
+            f"with {_describe_classes(wanted)} ({path}); give --config the configuration its nights were screened with"
         )
 
 
@@ -122,19 +146,26 @@ def apply_rule(
     as_of: str | None = None,
     classes: ClassAlphabet | None = None,
     labels: str = "indices",
+    config_name: str = "the configuration",
 ) -> dict:
     """Label ``items_path`` with the rule in force (on night ``as_of`` if given) and write
     ``write_path``. Returns the rule's identity (``in_force.json``'s content) and the row count.
 
-    :param classes: the configuration's class alphabet; checks the rule's classes against it.
-    :param labels: ``indices`` (int16, the default) or ``names`` (the classes' names; needs ``classes``).
+    :param classes: the configuration's class alphabet; must be the in-force night's classes
+        (:func:`check_night_classes`); checks the rule's classes against it.
+    :param labels: ``indices`` (int16, the default) or ``names`` (the classes' names; needs
+        ``classes`` with names).
+    :param config_name: what error messages call the configuration (its path on the command line).
     :raises InputError: no rule in force, a missing column, an unreadable file, writing over
-        the input, a class outside the alphabet, or ``names`` without an alphabet.
+        the input, a configuration of other classes, a class outside the alphabet, or
+        ``names`` without named classes.
     """
     if labels not in LABEL_FORMS:
         raise InputError(f"labels must be one of {', '.join(LABEL_FORMS)}, not {labels!r}")
     if labels == "names" and classes is None:
         raise InputError("writing class names needs the configuration (--config FILE), whose classes name them")
+    if labels == "names" and classes is not None and classes.names is None:
+        raise InputError(f"--labels names needs a configuration with classes; {config_name} has none (write --labels indices)")
     items_path, write_path = Path(items_path), Path(write_path)
     state = in_force(out, as_of)
     if state["rule"] is None:
@@ -152,6 +183,7 @@ def apply_rule(
         raise InputError(f"{items_path}: cannot read it as Parquet ({error})") from None
     rule = state["rule"]
     if classes is not None:
+        check_night_classes(out, state["since"], classes, config_name)
         check_rule_classes(rule, classes, state.get("since"))
     needed = ["item_id"] + [c for c in [_needed_column(rule)] if c]
     missing = [c for c in needed if c not in schema.names]

@@ -138,17 +138,11 @@ def screen(inbox: Path, date: str, config, out: Path, lock_timeout: float, worke
 
 
 def _check_features(inbox: Path, dates: Sequence[str], config) -> None:
-    """Refuse, as a configuration error, columns the rule class's registry entry needs and no items table has."""
-    from truthsieve.core.rules import RULE_CLASSES
-    from truthsieve.exceptions import ConfigError
+    """Refuse, as a configuration error, columns the rule class's registry entry needs and no
+    items table of the run's nights has (:func:`~truthsieve.pipeline.locations.check_configured_columns`)."""
+    from truthsieve.pipeline.locations import check_configured_columns
 
-    entry = RULE_CLASSES.get(config.rule_class.kind)
-    if entry is None:  # the config validates the kind; a registry changed since is still one line
-        raise ConfigError(RULE_CLASSES.unknown(config.rule_class.kind))
-    if entry.needs_features:
-        check_features_present(inbox, dates, config.rule_class.features)
-    if entry.uses_rule_columns:
-        check_rule_columns_present(inbox, dates)
+    check_configured_columns(inbox, dates, config)
 
 
 def _refuse_missing_batch(inbox: Path, date: str) -> None:

@@ -181,7 +181,8 @@ def run_ledger_command(args) -> int:
         from truthsieve.pipeline.config import load_config
 
         classes = load_config(args.config).class_alphabet if args.config else None
-        result = apply_rule(args.out, args.items, args.write, args.as_of, classes, args.labels)
+        name = f"--config {args.config}" if args.config else "the configuration"
+        result = apply_rule(args.out, args.items, args.write, args.as_of, classes, args.labels, name)
         print(f"{result['rows']} items labelled into {result['written']}")
         print(_describe(result, args.out))
         return 0

@@ -4,7 +4,9 @@ The output root must never equal, contain or lie inside the inbox: publishing re
 ``<out>/batch_date=D`` away, and with ``--out`` equal to ``--inbox`` that would be the
 night's input folder. Configured features (and, for the listed class, some ``rule__*``
 column) must exist in at least one items table of the nights asked for; otherwise the
-configuration is wrong, not the data.
+configuration is wrong, not the data. :func:`check_configured_columns` is that check as the
+rule-class registry drives it; the command line (for the nights of a run) and
+``night.check_items`` (for the one night of an Airflow run) both call it.
 """
 
 from __future__ import annotations
@@ -106,3 +108,22 @@ def check_rule_columns_present(inbox: str | Path, dates: Sequence[str]) -> None:
             f"rule_class.kind 'listed': no items table of {_nights(dates)} has a rule__<name> column "
             "(the candidate rules); add them to items.parquet or choose another rule class"
         )
+
+
+def check_configured_columns(inbox: str | Path, dates: Sequence[str], config) -> None:
+    """Refuse, as a configuration error, columns the rule class's registry entry needs and no
+    items table of ``dates`` has: the configured features (``needs_features``) or any
+    ``rule__*`` column (``uses_rule_columns``). Reads Parquet footers only.
+
+    :raises ConfigError: one line, from :func:`check_features_present` or
+        :func:`check_rule_columns_present`; or the kind is not in the registry.
+    """
+    from truthsieve.core.rules import RULE_CLASSES  # here: the command line starts without numpy
+
+    entry = RULE_CLASSES.get(config.rule_class.kind)
+    if entry is None:  # the config validates the kind; a registry changed since is still one line
+        raise ConfigError(RULE_CLASSES.unknown(config.rule_class.kind))
+    if entry.needs_features:
+        check_features_present(inbox, dates, config.rule_class.features)
+    if entry.uses_rule_columns:
+        check_rule_columns_present(inbox, dates)

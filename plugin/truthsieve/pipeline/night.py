@@ -89,10 +89,23 @@ def start_night(store, batch_date: str) -> list[str]:
     return store.source_folders(batch_date)
 
 
-def check_items(store, batch_date: str, config: Config) -> FileCheck:
-    """Validate the items table once and write it (or its quarantine copy) to the work area."""
+def check_items(store, batch_date: str, config: Config, columns_checked: bool = False) -> FileCheck:
+    """Validate the items table once and write it (or its quarantine copy) to the work area.
+
+    First the configuration's columns are checked against the night's items table
+    (:func:`~truthsieve.pipeline.locations.check_configured_columns`, the command line's
+    check): a configured feature, or with the listed class any ``rule__*`` column, that the
+    table lacks is a :class:`~truthsieve.exceptions.ConfigError`, so an Airflow run fails
+    here at once. An Airflow run sees one night; the command line checks the whole range
+    of a backfill before it starts and passes ``columns_checked`` (a night lacking a column
+    that other nights of its range have is that night's input error, not the configuration's).
+    """
+    from truthsieve.pipeline.locations import check_configured_columns
+
     store.check_locations()
     with store.local_inbox(batch_date, (ITEMS_FILE,)) as root:
+        if not columns_checked:
+            check_configured_columns(root, [batch_date], config)
         check = validate_items_at(root, batch_date, config)
         work_files.write_items(store, batch_date, check, work_files.quarantine_blob(root, check))
     return check
@@ -269,7 +282,7 @@ def screen_night(
         start_context()  # the pool's server imports its modules while the night is validated
     folders = start_night(store, batch_date)
     try:
-        items = check_items(store, batch_date, config)
+        items = check_items(store, batch_date, config, columns_checked=True)  # the command line checked its whole range
         items_index = item_index(items)
         intake = Intake(batch_date, items, [validate_source(store, batch_date, f, config, items_index) for f in folders])
         fit = fit_consensus(store, batch_date, config, intake)
