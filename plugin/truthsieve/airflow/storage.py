@@ -74,16 +74,61 @@ def write_object(target: ObjectStoragePath, data: bytes) -> None:
     target.write_bytes(data)
 
 
-def store_for(inbox: str, out: str):
+def store_for(inbox: str, out: str, *, run: str | None = None, lock_timeout: float = 600.0):
     """The :class:`~truthsieve.pipeline.store.BatchStore` of an inbox and an output location:
     a :class:`~truthsieve.pipeline.store.LocalStore` for a local output root, else an
-    :class:`ObjectStore`. Relative ``file://``/``local://`` URIs are refused."""
+    :class:`ObjectStore`. Relative ``file://``/``local://`` URIs are refused.
+
+    :param run: a private work area name (the command line's); None: the night's shared one.
+    :param lock_timeout: a local output root's wait for another run of the same date.
+    """
     from truthsieve.pipeline.store import LocalStore
 
     source = local_path(inbox) if is_local(inbox) else location(inbox)
     if is_local(out):
-        return LocalStore(source, local_path(out))
-    return _object_store_class()(source, location(out))
+        return LocalStore(source, local_path(out), run=run, lock_timeout=lock_timeout)
+    return _object_store_class()(source, location(out), run=run)
+
+
+def command_line_store(inbox: Path, out: str, lock_timeout: float):
+    """The store of one command-line run whose ``--out`` is a URL (:func:`store_for`, the
+    DAG's, with a private work area), its locations checked before any work.
+
+    :raises ConfigError: one line: an unsupported scheme or a missing file-system package,
+        a relative ``file://`` URI, an output inside the inbox, an object where a folder
+        should be, or a location that cannot be reached or written.
+    """
+    from truthsieve.pipeline.store import private_run
+
+    try:
+        is_local(out)
+    except (ValueError, ImportError) as error:  # fsspec: "Unsupported filesystem: 'x'", "Install s3fs ..."
+        raise ConfigError(f"--out {out}: {_one_line(error)}") from None
+    try:
+        store = store_for(str(inbox), out, run=private_run(), lock_timeout=lock_timeout)
+    except ConfigError as error:  # a relative file:// URI
+        raise ConfigError(f"--out {error}") from None
+    store.check_locations()
+    return store
+
+
+def _one_line(error: BaseException) -> str:
+    return " ".join(str(error).split()) or type(error).__name__
+
+
+def check_object_out(root: ObjectStoragePath) -> None:
+    """Refuse an object-store output root that is an object, or that cannot be reached or
+    written: one small probe object is written and deleted (before any work)."""
+    try:
+        if root.is_file():
+            raise ConfigError(f"--out {root} is an object, not a folder (prefix)")
+        probe = root / f".truthsieve-probe-{uuid.uuid4().hex}"
+        write_object(probe, b"")
+        probe.unlink()
+    except ConfigError:
+        raise
+    except Exception as error:  # noqa: BLE001 - credentials, network, permissions: each one line
+        raise ConfigError(f"--out {root} cannot be reached or written: {type(error).__name__}: {_one_line(error)}") from None
 
 
 @functools.cache
@@ -100,6 +145,9 @@ def _object_store_class():
 
         def publish(self, batch_date: str, files: Mapping[str, bytes]):
             return publish_objects(self.out, batch_date, files)
+
+        def check_locations(self) -> None:
+            check_object_out(self.out)
 
     return ObjectStore
 

@@ -16,7 +16,7 @@ from collections.abc import Sequence
 from pathlib import Path
 
 from truthsieve import __version__
-from truthsieve.exceptions import BatchLockedError, InputError
+from truthsieve.exceptions import BatchLockedError, ConfigError, InputError
 from truthsieve.pipeline.locations import check_features_present, check_out_location, check_rule_columns_present
 from truthsieve.pipeline.ledger_cli import LEDGER_COMMANDS, _date, _seconds, add_ledger_commands, run_ledger_command
 
@@ -44,6 +44,48 @@ def _workers(text: str) -> int:
     return value
 
 
+OUT_HELP = "output root: a folder, or an object-store URL (s3://bucket/prefix, file:///abs/path, memory://x; needs Airflow)"
+
+
+def _location(text: str) -> Path | str:
+    """``--inbox``/``--out``: a local path, or a URL (``scheme://…``) kept as written; URLs
+    are resolved only by :func:`_open_store` (Airflow is imported only then)."""
+    return text if "://" in text else Path(text)
+
+
+def _airflow_storage():
+    """:mod:`truthsieve.airflow.storage`, the DAG's store code (imports Airflow: only for URLs)."""
+    try:
+        from truthsieve.airflow import storage
+    except ImportError as error:
+        raise ConfigError(f"object-store URLs need Airflow (pip install 'truthsieve[airflow]'): {error}") from None
+    return storage
+
+
+def _local_inbox(inbox: Path | str) -> Path:
+    """The inbox as a local folder: ``file://``/``local://`` URLs become paths; other URLs
+    are refused (the command line checks a night's columns before any work, on local files)."""
+    if isinstance(inbox, Path):
+        return inbox
+    storage = _airflow_storage()
+    try:
+        local = storage.is_local(inbox)
+    except (ValueError, ImportError) as error:
+        raise ConfigError(f"--inbox {inbox}: {' '.join(str(error).split())}") from None
+    if not local:
+        raise ConfigError(f"--inbox {inbox}: the command line reads a local inbox (a folder or file:///abs/path); --out may be an object store")
+    return storage.local_path(inbox)
+
+
+def _open_store(inbox: Path, out: Path | str, lock_timeout: float):
+    """Check ``--out`` against the inbox (creating it); a URL's store through the DAG's
+    ``store_for`` (None for a plain path: :func:`screen` opens its local store)."""
+    if isinstance(out, Path):
+        check_out_location(inbox, out)
+        return None
+    return _airflow_storage().command_line_store(inbox, out, lock_timeout)
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _OneLineParser(
         prog="truthsieve",
@@ -54,20 +96,20 @@ def build_parser() -> argparse.ArgumentParser:
     commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
     screen = commands.add_parser("screen", help="screen one night's batch and publish its decision")
-    screen.add_argument("--inbox", required=True, type=Path, help="inbox root holding batch_date=YYYY-MM-DD/ folders")
+    screen.add_argument("--inbox", required=True, type=_location, help="inbox root holding batch_date=YYYY-MM-DD/ folders (a folder or file:///abs/path)")
     screen.add_argument("--date", required=True, type=_date, help="batch date, YYYY-MM-DD")
     screen.add_argument("--config", required=True, type=Path, help="YAML configuration file")
-    screen.add_argument("--out", required=True, type=Path, help="output root")
+    screen.add_argument("--out", required=True, type=_location, help=OUT_HELP)
     screen.add_argument("--lock-timeout", type=_seconds, default=600.0, help="seconds to wait for another run of the same date (default 600)")
     screen.add_argument("--json", action="store_true", help="print the decision as JSON instead of the summary")
     screen.add_argument("--workers", type=_workers, default=None, help=WORKERS_HELP)
 
     backfill = commands.add_parser("backfill", help="screen every night of a date range, oldest first")
-    backfill.add_argument("--inbox", required=True, type=Path)
+    backfill.add_argument("--inbox", required=True, type=_location)
     backfill.add_argument("--from", dest="first", required=True, type=_date, help="first batch date, YYYY-MM-DD")
     backfill.add_argument("--to", dest="last", required=True, type=_date, help="last batch date, YYYY-MM-DD (inclusive)")
     backfill.add_argument("--config", required=True, type=Path)
-    backfill.add_argument("--out", required=True, type=Path)
+    backfill.add_argument("--out", required=True, type=_location, help=OUT_HELP)
     backfill.add_argument("--lock-timeout", type=_seconds, default=600.0)
     backfill.add_argument("--workers", type=_workers, default=None, help=WORKERS_HELP)
 
@@ -127,14 +169,17 @@ def write_index(out) -> Path:
     return write(out)
 
 
-def screen(inbox: Path, date: str, config, out: Path, lock_timeout: float, workers: int | None = None):
-    """Screen one local night (:func:`truthsieve.pipeline.screen.screen`, which runs
-    :func:`~truthsieve.pipeline.night.screen_night`) with the draw key from the environment,
-    read here at the edge."""
+def screen(inbox: Path, date: str, config, out, lock_timeout: float, workers: int | None = None, store=None):
+    """Screen one night (:func:`~truthsieve.pipeline.night.screen_night`) with the draw key
+    from the environment, read here at the edge: on ``store`` when given (a URL's, from
+    :func:`_open_store`), else on a local store of ``out`` (:func:`truthsieve.pipeline.screen.screen`)."""
     from truthsieve.pipeline import screen as screening
-    from truthsieve.pipeline.night import draw_key_from_environment
+    from truthsieve.pipeline.night import draw_key_from_environment, screen_night
 
-    return screening.screen(inbox, date, config, out, lock_timeout, draw_key=draw_key_from_environment(os.environ), workers=workers)
+    key = draw_key_from_environment(os.environ)
+    if store is not None:
+        return screen_night(store, date, config, key, index=False, workers=workers)
+    return screening.screen(inbox, date, config, out, lock_timeout, draw_key=key, workers=workers)
 
 
 def _check_features(inbox: Path, dates: Sequence[str], config) -> None:
@@ -159,18 +204,19 @@ def backfill(
     from truthsieve.pipeline.layout import batch_dir
 
     config = config or load_config(config_path)
+    inbox = _local_inbox(inbox)
     present = [d for d in dates if batch_dir(inbox, d).is_dir()]
     if not present:
         print(f"error: no batch folders under {inbox} for {dates[0]} to {dates[-1]}", file=sys.stderr)
         return EXIT_INPUT
     _check_features(inbox, present, config)
-    check_out_location(inbox, out)  # last: a refused run leaves no --out folder behind
+    store = _open_store(inbox, out, lock_timeout)  # last: a refused run leaves no --out folder behind
     results = []
     for k, date in enumerate(present):
         _progress(k, len(present), date)
-        results.append(screen(inbox, date, config, out, lock_timeout, workers))
+        results.append(screen(inbox, date, config, out, lock_timeout, workers, store))
     _progress(len(present), len(present), "done")
-    index = write_index(out)
+    index = write_index(out) if store is None else store.write_index()
     routes = [r.route for r in results]
     print(f"{len(results)} nights screened: {routes.count('aggregate')} aggregated, {routes.count('review')} to review")
     for result in results:
@@ -189,11 +235,12 @@ def run(argv: Sequence[str] | None = None) -> int:
 
     if args.command == "screen":
         config = load_config(args.config)
-        _refuse_missing_batch(args.inbox, args.date)
-        _check_features(args.inbox, [args.date], config)
-        check_out_location(args.inbox, args.out)  # last: a refused run leaves no --out folder behind
-        result = screen(args.inbox, args.date, config, args.out, args.lock_timeout, args.workers)
-        write_index(args.out)
+        inbox = _local_inbox(args.inbox)
+        _refuse_missing_batch(inbox, args.date)
+        _check_features(inbox, [args.date], config)
+        store = _open_store(inbox, args.out, args.lock_timeout)  # last: a refused run leaves no --out folder behind
+        result = screen(inbox, args.date, config, args.out, args.lock_timeout, args.workers, store)
+        write_index(args.out) if store is None else store.write_index()
         print(json.dumps(result.decision, sort_keys=True, indent=2) if args.json else summary(result.decision, result.output))
         return EXIT_OK
     if args.command == "backfill":
