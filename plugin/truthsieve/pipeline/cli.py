@@ -17,7 +17,7 @@ from pathlib import Path
 
 from truthsieve import __version__
 from truthsieve.exceptions import BatchLockedError, ConfigError, InputError
-from truthsieve.pipeline.locations import check_features_present, check_out_location, check_rule_columns_present
+from truthsieve.pipeline.locations import check_out_location
 from truthsieve.pipeline.ledger_cli import LEDGER_COMMANDS, _date, _seconds, add_ledger_commands, run_ledger_command
 
 EXIT_OK, EXIT_FAILURE, EXIT_INPUT, EXIT_LOCKED = 0, 1, 2, 3
