@@ -126,3 +126,21 @@ def test_object_store_work_area_round_trip(memory):
     assert store.read_work(DATE, "sources/source_id=a.json") == b'{"x": 1}'
     store.clear_work(DATE)
     assert store.read_work(DATE, "sources/source_id=a.json") is None
+
+
+@pytest.mark.parametrize("run, synced", [(None, True), ("4242.abcdef", False)])
+def test_work_files_are_fsynced_only_in_a_shared_work_area(tmp_path, monkeypatch, run, synced):
+    # A shared work area (the DAG's tasks) must survive its writer; a command line's private
+    # one dies with its process, so the fsync is skipped there. Counting the calls is the only
+    # way to see a durability policy from a test (the bytes are the same either way).
+    from truthsieve.pipeline import outputs
+    from truthsieve.pipeline.store import LocalStore
+
+    calls = []
+    real = os.fsync
+    monkeypatch.setattr(outputs.os, "fsync", lambda fd: (calls.append(fd), real(fd))[1])
+    (tmp_path / "inbox").mkdir()
+    store = LocalStore(tmp_path / "inbox", tmp_path / "out", run=run)
+    store.write_work("2026-01-01", "night/fit.json", b'{"rule": 3}')
+    assert store.read_work("2026-01-01", "night/fit.json") == b'{"rule": 3}'
+    assert bool(calls) is synced

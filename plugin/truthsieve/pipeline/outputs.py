@@ -57,13 +57,19 @@ def dumps_decision(decision: Mapping) -> bytes:
     return (json.dumps(decision, sort_keys=True, indent=2, allow_nan=False, ensure_ascii=False) + "\n").encode()
 
 
-def write_atomic(path: Path, data: bytes, step: str = "temporary_written") -> None:
-    """Write ``data`` to ``path`` through a temporary name in the same folder."""
+def write_atomic(path: Path, data: bytes, step: str = "temporary_written", durable: bool = True) -> None:
+    """Write ``data`` to ``path`` through a temporary name in the same folder.
+
+    :param durable: fsync before the rename (published files, shared work areas). Scratch
+        that dies with its process (a command-line screen's private work area) skips it:
+        readers still see a whole file or none, and nothing outlives a crash there.
+    """
     temporary = path.with_name(f".{path.name}.{uuid.uuid4().hex}.tmp")
     with open(temporary, "wb") as handle:
         handle.write(data)
-        handle.flush()
-        os.fsync(handle.fileno())
+        if durable:
+            handle.flush()
+            os.fsync(handle.fileno())
     crash_point(step)
     os.replace(temporary, path)
 

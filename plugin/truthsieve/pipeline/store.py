@@ -148,6 +148,16 @@ class LocalStore(BatchStore):
         target.parent.mkdir(parents=True, exist_ok=True)
         write_atomic(target, data, step="work_temporary_written")  # not a publishing step
 
+    def write_work(self, batch_date: str, name: str, data: bytes) -> None:
+        from truthsieve.pipeline.outputs import write_atomic
+
+        # A private work area (one command-line screen) is removed when the run ends and
+        # discarded when its process dies, so its files need no fsync; a shared one (the
+        # DAG's tasks, on storage every worker sees) keeps it.
+        target = self.work(batch_date) / name
+        target.parent.mkdir(parents=True, exist_ok=True)
+        write_atomic(target, data, step="work_temporary_written", durable=self.run is None)
+
     def check_locations(self) -> None:
         if isinstance(self.inbox, Path):
             from truthsieve.pipeline.locations import check_out_location
