@@ -19,6 +19,7 @@ from pathlib import Path
 
 import pytest
 
+from inboxes import one_line_error
 from truthsieve.pipeline.cli import main
 
 pytestmark = pytest.mark.airflow
@@ -45,13 +46,6 @@ def cli(*args: str, prelude: str = "") -> subprocess.CompletedProcess:
     code = f"{prelude}\nimport sys\nfrom truthsieve.pipeline.cli import main\nsys.exit(main(sys.argv[1:]))"
     return subprocess.run([sys.executable, "-c", code, *args], capture_output=True, text=True, env=env, timeout=300)
 
-
-def one_line_error(result) -> str:
-    assert result.returncode == 2, (result.returncode, result.stdout, result.stderr)
-    lines = result.stderr.strip().splitlines()
-    assert len(lines) == 1 and lines[0].startswith("error:"), result.stderr
-    assert "Traceback" not in result.stderr
-    return lines[0]
 
 
 def local_decision(inbox: Path, config: Path, night: str, out: Path) -> bytes:

@@ -10,17 +10,10 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from inboxes import cli, write_batch, write_config
+from inboxes import cli, one_line_error, write_batch, write_config
 
 DATE = "2026-11-03"
 
-
-def one_line_error(result: subprocess.CompletedProcess) -> str:
-    assert result.returncode == 2, (result.returncode, result.stderr)
-    lines = result.stderr.strip().splitlines()
-    assert len(lines) == 1 and lines[0].startswith("error:"), result.stderr
-    assert "Traceback" not in result.stderr and "usage:" not in result.stderr
-    return lines[0]
 
 
 @pytest.mark.parametrize(
