@@ -19,7 +19,7 @@ from pathlib import Path
 
 import pytest
 
-from inboxes import one_line_error
+from cli_support import one_line_error
 from truthsieve.pipeline.cli import main
 
 pytestmark = pytest.mark.airflow

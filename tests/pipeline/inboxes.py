@@ -66,11 +66,3 @@ def cli(*args: str, env: dict | None = None, **kwargs) -> subprocess.CompletedPr
         [sys.executable, "-m", "truthsieve.pipeline.cli", *args], capture_output=True, text=True, env=env, **kwargs
     )
 
-
-def one_line_error(result) -> str:
-    """The one stderr line of a refused command: exit 2, ``error: ...``, no traceback, no usage text."""
-    assert result.returncode == 2, (result.returncode, result.stdout, result.stderr)
-    lines = result.stderr.strip().splitlines()
-    assert len(lines) == 1 and lines[0].startswith("error:"), result.stderr
-    assert "Traceback" not in result.stderr and "usage:" not in result.stderr
-    return lines[0]

@@ -12,7 +12,8 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from inboxes import checksums, cli, one_line_error, write_batch, write_config
+from cli_support import one_line_error
+from inboxes import checksums, cli, write_batch, write_config
 
 DATE = "2026-11-03"
 
