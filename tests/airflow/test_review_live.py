@@ -201,6 +201,17 @@ def test_a_review_night_answered_through_the_rest_api_is_ledgered_and_announced(
             return state == "awaiting_input"
 
         stack.wait_for(review_state, timeout=300, what="review_night to await input", interval=1)
+        # A person answers minutes later; a test answers at once. Answering before the scheduler
+        # has taken the deferring workload's own exit event lets that late event land on the
+        # resumed, already queued task, which Airflow then marks failed (seen once in CI). So
+        # answer only after the scheduler logged that event: a condition, polled with a bound.
+        deferred_exit = "task_id='review_night', run_id='review-night', try_number=1"
+        stack.wait_for(
+            lambda: any("Received executor event" in line and deferred_exit in line for line in stack.log("scheduler", 200_000).splitlines()),
+            timeout=120,
+            what="the scheduler to take review_night's deferral exit",
+            interval=0.5,
+        )
         asked = stack.api("GET", f"{ti_path}/review_night/-1/hitlDetails")
         assert NIGHT in asked["subject"] and "Would apply if approved" in asked["body"] and asked["options"] == ["Approve", "Reject"]
         assert not (out / f"batch_date={NIGHT}" / "review.json").read_text().count('"approved"')
