@@ -10,8 +10,9 @@ setup: $(STAMP)
 $(STAMP): pyproject.toml requirements.lock
 	python3 -m pip install --quiet --disable-pip-version-check uv
 	test -x $(PYTHON) || python3 -m uv venv --quiet -p python3.11 $(VENV)
-	python3 -m uv pip install --quiet --python $(PYTHON) -r requirements.lock
+	python3 -m uv pip install --quiet --compile-bytecode --python $(PYTHON) -r requirements.lock
 	python3 -m uv pip install --quiet --python $(PYTHON) --no-deps -e .
+	$(PYTHON) -m compileall -q plugin
 	touch $(STAMP)
 
 demo: setup

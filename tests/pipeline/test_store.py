@@ -39,6 +39,27 @@ def test_local_work_area_round_trip_and_clear(tmp_path):
     assert not list((tmp_path / "out" / ".work").rglob("*.tmp"))
 
 
+def test_a_work_area_held_in_memory_touches_no_file_until_spilled(tmp_path):
+    store = LocalStore(tmp_path / "in", tmp_path / "out", run="2.y")
+    other = "2026-02-02"
+    with store.work_in_memory():
+        store.write_work(DATE, "night/fit.json", b"fit")
+        store.write_work(other, "night/fit.json", b"another night")
+        assert store.read_work(DATE, "night/fit.json") == b"fit"
+        assert not (tmp_path / "out").exists()  # held: nothing on disk
+        store.spill_work(DATE)
+        on_disk = store.work(DATE) / "night" / "fit.json"
+        assert on_disk.read_bytes() == b"fit"
+        assert not store.work(other).exists()  # only the night asked for is written out
+        store.write_work(DATE, "incentives/a.json", b"after")  # spilled: writes go to disk now
+        assert (store.work(DATE) / "incentives" / "a.json").read_bytes() == b"after"
+    assert store.read_work(DATE, "night/fit.json") == b"fit"  # outside the block: the files
+    with store.work_in_memory():
+        store.write_work(DATE, "sources/b.json", b"held")
+        store.clear_work(DATE)
+        assert store.read_work(DATE, "sources/b.json") is None and not store.work(DATE).exists()
+
+
 def test_a_dead_screens_private_work_area_is_removed_under_the_date_lock(tmp_path):
     child = subprocess.Popen([sys.executable, "-c", "pass"])
     child.wait()  # its pid is now free (reuse within this test is all but impossible)

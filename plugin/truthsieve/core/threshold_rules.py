@@ -142,6 +142,11 @@ class ThresholdRules(RuleClass):
 
     def _best_pair_values(self, alpha: FloatArray, delta: FloatArray) -> FloatArray:
         """``min_{a != b} risk(a, b)`` per cut, O(cuts K)."""
+        if self.n_classes == 2:
+            # The two pairs are (0, 1) and (1, 0): the general branch below picks exactly
+            # these floats (its argsorts only decide which of the two is smaller).
+            two: FloatArray = np.minimum(alpha[:, 0] + delta[:, 1], alpha[:, 1])
+            return two
         rows = np.arange(len(alpha))
         order_a = np.argsort(alpha, axis=1, kind="stable")[:, :2]
         order_b = np.argsort(delta, axis=1, kind="stable")[:, :2]

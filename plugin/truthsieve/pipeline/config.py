@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+from functools import cached_property
 from pathlib import Path
 from typing import Literal
 
@@ -236,8 +237,9 @@ class Config(_Strict):
         canonical = json.dumps(dump, sort_keys=True, separators=(",", ":"), ensure_ascii=True)
         return "sha256:" + hashlib.sha256(canonical.encode()).hexdigest()
 
-    @property
+    @cached_property
     def registry(self) -> dict[str, SourceEntry]:
+        """Each registered source by id (built once: a night asks once per source)."""
         return {s.source_id: s for s in self.sources}
 
 

@@ -275,18 +275,21 @@ def screen_night(
     """Every step of one night in order (the command line): in this process, but for the
     per-source analysis, which runs on a pool of ``workers`` processes when more than 1
     (None: the machine's cores for a night large enough; see :mod:`truthsieve.pipeline.source_pool`).
+    The work area is held in memory (:meth:`BatchStore.work_in_memory`) and written to the store
+    only for a pool.
     """
     from truthsieve.pipeline.source_pool import analyse_sources, start_context
 
     if workers is not None and workers > 1:
         start_context()  # the pool's server imports its modules while the night is validated
-    folders = start_night(store, batch_date)
-    try:
-        items = check_items(store, batch_date, config, columns_checked=True)  # the command line checked its whole range
-        items_index = item_index(items)
-        intake = Intake(batch_date, items, [validate_source(store, batch_date, f, config, items_index) for f in folders])
-        fit = fit_consensus(store, batch_date, config, intake)
-        incentives = None if fit is None else analyse_sources(store, batch_date, config, fit, workers)
-        return publish_night(store, batch_date, config, draw_key, intake, incentives, index)
-    finally:
-        store.clear_work(batch_date)
+    with store.work_in_memory():  # one process: no other reads the work area, unless a pool
+        folders = start_night(store, batch_date)
+        try:
+            items = check_items(store, batch_date, config, columns_checked=True)  # the command line checked its whole range
+            items_index = item_index(items)
+            intake = Intake(batch_date, items, [validate_source(store, batch_date, f, config, items_index) for f in folders])
+            fit = fit_consensus(store, batch_date, config, intake)
+            incentives = None if fit is None else analyse_sources(store, batch_date, config, fit, workers)
+            return publish_night(store, batch_date, config, draw_key, intake, incentives, index)
+        finally:
+            store.clear_work(batch_date)

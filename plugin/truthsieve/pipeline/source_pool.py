@@ -74,7 +74,8 @@ def _analyse(source_id: str) -> SourceIncentive:
 def analyse_sources(store, batch_date: str, config: Config, fit, workers: int | None = 1) -> list[SourceIncentive]:
     """:func:`~truthsieve.pipeline.night.analyse_source` for every valid source, in source order.
 
-    :param fit: the night's :class:`~truthsieve.pipeline.night.Fit`, already in the work area.
+    :param fit: the night's :class:`~truthsieve.pipeline.night.Fit`, already in the work area
+        (written out first if the store holds it in memory).
     :param workers: processes (1: this one; None: see :func:`pool_size`).
     """
     from truthsieve.pipeline.night import analyse_source
@@ -85,6 +86,7 @@ def analyse_sources(store, batch_date: str, config: Config, fit, workers: int | 
         return [analyse_source(store, batch_date, config, s, fit) for s in source_ids]
     from concurrent.futures import ProcessPoolExecutor
 
+    store.spill_work(batch_date)  # the workers read the fit and the labels from the store
     chunk = max(1, len(source_ids) // (4 * size))
     with ProcessPoolExecutor(size, start_context(), _start_worker, (store, batch_date, config)) as pool:
         return list(pool.map(_analyse, source_ids, chunksize=chunk))

@@ -36,6 +36,7 @@ class BatchStore:
 
     def __init__(self, inbox, out, run: str | None = None) -> None:
         self.inbox, self.out, self.run = as_location(inbox), as_location(out), run
+        self._held: dict[tuple[str, str], bytes] | None = None
 
     # ---- the inbox ----
     def batch_exists(self, batch_date: str) -> bool:
@@ -70,14 +71,42 @@ class BatchStore:
     def work(self, batch_date: str):
         return work_dir(self.out, batch_date, self.run)
 
+    @contextlib.contextmanager
+    def work_in_memory(self) -> Iterator[None]:
+        """Hold the work area in memory inside the block: for one process that runs every
+        step (the command line), where no other process reads it. :meth:`spill_work`
+        writes it out when other processes must (a pool of workers)."""
+        self._held = {}
+        try:
+            yield
+        finally:
+            self._held = None
+
+    def spill_work(self, batch_date: str) -> None:
+        """Write the held work area of ``batch_date`` to the store and stop holding it."""
+        held, self._held = self._held or {}, None
+        for (date, name), data in held.items():
+            if date == batch_date:
+                self.write_work(date, name, data)
+
     def write_work(self, batch_date: str, name: str, data: bytes) -> None:
+        if self._held is not None:
+            self._held[(batch_date, name)] = data
+        else:
+            self._write_work(batch_date, name, data)
+
+    def _write_work(self, batch_date: str, name: str, data: bytes) -> None:
         self.write(self.work(batch_date) / name, data)
 
     def read_work(self, batch_date: str, name: str) -> bytes | None:
+        if self._held is not None:
+            return self._held.get((batch_date, name))
         path = self.work(batch_date) / name
         return path.read_bytes() if path.is_file() else None
 
     def clear_work(self, batch_date: str) -> None:
+        if self._held is not None:
+            self._held = {key: data for key, data in self._held.items() if key[0] != batch_date}
         work = self.work(batch_date)
         if work.exists():
             work.rmdir(recursive=True) if not isinstance(work, Path) else shutil.rmtree(work)
@@ -148,7 +177,7 @@ class LocalStore(BatchStore):
         target.parent.mkdir(parents=True, exist_ok=True)
         write_atomic(target, data, step="work_temporary_written")  # not a publishing step
 
-    def write_work(self, batch_date: str, name: str, data: bytes) -> None:
+    def _write_work(self, batch_date: str, name: str, data: bytes) -> None:
         from truthsieve.pipeline.outputs import write_atomic
 
         # A private work area (one command-line screen) is removed when the run ends and
