@@ -129,45 +129,47 @@ def measure_startup(repeat: int) -> dict:
 
 
 def measure(n_items: int, listed_rules: int, repeat: int) -> dict:
-    """Runs inside the child process."""
-
-    from truthsieve.core.dawid_skene import dawid_skene
-    from truthsieve.core.incentives import source_incentive
-    from truthsieve.core.mechanisms import run_mechanism
-    from truthsieve.pipeline.analysis import prepare
+    """Runs inside the child process: the floors, then the night's own steps
+    (:mod:`truthsieve.pipeline.night`, as ``screen_night`` runs them, work area in memory)
+    one by one for the phase split, then the whole command-line screen."""
+    from truthsieve.pipeline import night as steps
     from truthsieve.pipeline.config import Config
-    from truthsieve.pipeline.outputs import publish
-    from truthsieve.pipeline.screen import decide, ingest_batch
+    from truthsieve.pipeline.records import Intake
+    from truthsieve.pipeline.store import LocalStore
 
+    date = "2026-01-01"
     with tempfile.TemporaryDirectory() as tmp:
-        inbox = Path(tmp)
+        inbox = Path(tmp) / "inbox"
         config = Config.model_validate(make_inbox(inbox, n_items, listed_rules))
         times: dict[str, list[float]] = {}
         timed = timer(times)
 
-        for _ in range(repeat):
-            batch = inbox / "batch_date=2026-01-01"
+        for repeat_number in range(repeat):
+            batch = inbox / f"batch_date={date}"
 
             def bare_load():
-                """The floor: every file read and every column turned into a NumPy array."""
+                """Every file read and every column turned into a NumPy array."""
                 tables = [pq.read_table(batch / "items.parquet"), *(pq.read_table(p) for p in sorted(batch.glob("source_id=*/*.parquet")))]
                 return [[column.to_numpy(zero_copy_only=False) for column in table.columns] for table in tables]
 
             timed("bare_load", bare_load)
             timed("tight_floor", lambda: tight_floor(batch, [] if listed_rules else [f"f{k}" for k in range(N_FEATURES)]))
-            intake = timed("load_validate", lambda: ingest_batch(inbox, "2026-01-01", config))
-            matrix, rule_class, consensus = timed("consensus_fit", lambda: prepare(intake.labels, intake.items.table, config))
-            timed("mechanism", lambda: run_mechanism(config.mechanism, matrix, rule_class, consensus))
-            results = timed("incentives", lambda: [source_incentive(matrix, rule_class, consensus, i, config.analysis.incentive_budget) for i in range(matrix.n_sources)])
-            timed("reliability", lambda: dawid_skene(matrix.labels, matrix.labelled))
-            decision, files, _ = decide(intake, config, {}, results)
-            timed("write_outputs", lambda: publish(inbox / "out", "2026-01-01", files))
+            store = LocalStore(inbox, Path(tmp) / f"out{repeat_number}", run="bench")
+            with store.work_in_memory():
+                folders = steps.start_night(store, date)
+                items = timed("check_items", lambda: steps.check_items(store, date, config, columns_checked=True))
+                index = steps.item_index(items)
+                intake = timed("validate_sources", lambda: Intake(date, items, [steps.validate_source(store, date, f, config, index) for f in folders]))
+                fit = timed("consensus_fit", lambda: steps.fit_consensus(store, date, config, intake))
+                results = timed("incentives", lambda: [steps.analyse_source(store, date, config, s, fit) for s in fit.source_ids])
+                published = timed("decide_publish", lambda: steps.publish_night(store, date, config, intake=intake, incentives=results))
             timed("full_screen", lambda: screen_to_fresh_out(inbox, config))
-            report_bytes = len(files["report.html"])
+            report_bytes = (published.output / "report.html").stat().st_size
+            rule_class = fit.rule_class
             if rule_class.kind == "threshold":
                 from sklearn.tree import DecisionTreeClassifier
 
-                costs = matrix.global_costs()
+                costs = fit.totals
                 cost0, cost1 = costs[:, 0], costs[:, 1]
                 features = np.column_stack([f.values for f in rule_class.features])
                 y = (cost0 > cost1).astype(int)
@@ -309,8 +311,6 @@ def measure_many_sources(n_sources: int, n_items: int, sample: int) -> dict:
     )
     from truthsieve.pipeline import analysis, night as night_steps
     from truthsieve.pipeline.config import Config
-    from truthsieve.pipeline.outputs import publish
-    from truthsieve.pipeline.screen import decide, ingest_batch
     from truthsieve.pipeline.store import LocalStore
 
     # Count whole-matrix builds per step: wrap prepare wherever a module holds the name.
@@ -352,7 +352,7 @@ def measure_many_sources(n_sources: int, n_items: int, sample: int) -> dict:
         for s in sorted(set(range(n_sources)) - set(picks.tolist())):
             night_steps.analyse_source(store, "2026-01-01", config, f"s{s:04d}", shared)
         publish_step = timed(lambda: DecideAndPublishOperator(task_id="decide_and_publish", **paths).run({}), "decide_and_publish")
-        cli_screen = timed(lambda: publish(out / "cli", "2026-01-01", decide(ingest_batch(inbox, "2026-01-01", config), config, {})[1]), "cli_screen")
+        cli_screen = timed(lambda: screen_to_fresh_out(inbox, config), "cli_screen")
     per_source = statistics.median(validate) + statistics.median(incentive)
     night = check + sum(validate) + fit + n_sources * statistics.median(incentive) + publish_step
     return {
