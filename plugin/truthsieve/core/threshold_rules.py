@@ -29,8 +29,6 @@ from truthsieve.exceptions import RuleClassError
 @dataclass(frozen=True)
 class _SortedFeature:
     name: str
-    order: IntArray  # item positions in increasing feature value
-    split_after: IntArray  # k: a cut lies between sorted positions k-1 and k
     cuts: FloatArray  # midpoints, increasing
     values: FloatArray  # the feature, in item order
     bins: npt.NDArray[np.int32]  # per item (item order): how many cuts lie below its value
@@ -70,7 +68,9 @@ class ThresholdRules(RuleClass):
             # The item at sorted position p lies above cut k iff split_after[k] <= p.
             bins = np.empty(len(values), dtype=np.int32)
             bins[order] = np.searchsorted(split_after, np.arange(len(values)), side="right")
-            self.features.append(_SortedFeature(str(name), order, split_after, cuts, values, bins))
+            # The sort order and split positions are not kept: the bins carry all the
+            # fit needs (at 10M items, 160 MB less per feature).
+            self.features.append(_SortedFeature(str(name), cuts, values, bins))
         if not self.features:
             raise RuleClassError(
                 "threshold class has no usable feature: every configured feature is "
