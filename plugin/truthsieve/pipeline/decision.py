@@ -153,10 +153,7 @@ class Decision:
 
 
 def _number(value):
-    if value is None:
-        return None
-    value = float(value)
-    return None if not np.isfinite(value) else value
+    return None if value is None or not np.isfinite(float(value)) else float(value)
 
 
 def absent_sources(intake: Intake, config: Config) -> tuple[Absent, ...]:
@@ -257,8 +254,12 @@ def _record(kind, data: Mapping, **typed):
     return kind(**{f.name: typed[f.name] if f.name in typed else data[f.name] for f in fields(kind)})
 
 
+_LATER_KEYS = {"absent": [], "notes": [], "earlier_draws": [], "draw_revision": 0, "config_sha256": None}  # what older files mean by lacking them
+
+
 def decision_from_json(data: Mapping) -> Decision:
-    """A parsed ``decision.json`` as the typed :class:`Decision`: :func:`decision_json`'s inverse (a missing key raises KeyError)."""
+    """A parsed ``decision.json`` as the typed :class:`Decision`, :func:`decision_json`'s inverse (a key missing raises KeyError)."""
+    data = {**_LATER_KEYS, **data}
     mechanism, classes = data["mechanism"], data.get("classes")
     if mechanism is not None:
         mechanism = _record(Mechanism, mechanism, lottery=tuple(_record(LotteryChoice, x) for x in mechanism["lottery"]))
@@ -285,13 +286,12 @@ def sources_table(analysis: BatchAnalysis, decision: Decision) -> pa.Table:
     rows = []
     for report, source in zip(analysis.sources, decision.sources):
         row = {f.name: getattr(source, f.name) for f in fields(SourceEntry) if f.name not in _NOT_COLUMNS}
-        row.update(
-            flags=list(source.flags), positives=report.positives, disagreements=report.disagreements,
-            disagreement_low=report.disagreement_low, disagreement_high=report.disagreement_high,
+        rows.append({
+            **row, "flags": list(source.flags), "positives": report.positives, "disagreements": report.disagreements,
+            "disagreement_low": report.disagreement_low, "disagreement_high": report.disagreement_high,
             **{name: json.dumps(getattr(source, name), sort_keys=True) for name in ("own_best_rule", "gain_target_rule", "others_rule")},
-            batch_date=decision.batch_date,
-        )
-        rows.append(row)
+            "batch_date": decision.batch_date,
+        })
     return pa.Table.from_pylist(rows)
 
 
