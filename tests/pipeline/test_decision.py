@@ -176,3 +176,19 @@ def test_a_decision_lacking_a_key_is_refused_but_for_keys_older_files_lack():
     older = decision_from_json({k: v for k, v in data.items() if k not in ("absent", "notes", "earlier_draws", "draw_revision", "config_sha256")})
     assert (older.absent, older.notes, older.earlier_draws, older.draw_revision, older.config_sha256) == ((), (), (), 0, None)
     assert older.sources == decision_from_json(data).sources
+
+
+def test_sources_parquet_holds_the_golden_decisions_numbers_and_rules(golden):
+    decided, expected = golden
+    rows = pq.read_table(pa.BufferReader(decided.files["sources.parquet"])).to_pylist()
+    published = json.loads(expected)["sources"]  # the golden file (before K classes: rules without "below")
+    assert [r["source_id"] for r in rows] == [s["source_id"] for s in published]
+    for row, source in zip(rows, published):
+        for name in ("weight", "items", "disagreement", "pull", "gain_lower", "kappa", "balanced_accuracy", "history_batches"):
+            assert row[name] == source[name], name
+        assert row["flags"] == source["flags"] and row["batch_date"] == json.loads(expected)["batch_date"]
+        assert (row["disagreement_low"], row["disagreement_high"]) == tuple(source["disagreement_interval"])
+        for name in ("own_best_rule", "others_rule", "gain_target_rule"):
+            rule = json.loads(row[name])
+            rule.pop("below", None)  # added with K classes; the golden files predate it
+            assert rule == source[name], name
