@@ -34,6 +34,7 @@ def main(argv=None) -> int:
 
     from truthsieve.pipeline import demo
     from truthsieve.pipeline.cli import main as truthsieve
+    from truthsieve.pipeline.decision import decision_from_json
     from truthsieve.pipeline.ledger import read_ledger
     from truthsieve.pipeline.report_story import story
 
@@ -60,7 +61,7 @@ def main(argv=None) -> int:
         image.quantize(colors=64).save(args.png, optimize=True)
         print(f"screenshot of {page.name} for night {night}: {args.png} ({args.png.stat().st_size // 1024} KiB)")
         if args.story:
-            decisions = [json.loads(p.read_text()) for p in sorted(out.glob("batch_date=*/decision.json"))]
+            decisions = [decision_from_json(json.loads(p.read_text())) for p in sorted(out.glob("batch_date=*/decision.json"))]
             print()
             for line in story(decisions, read_ledger(out)):
                 print(f"- {line}")

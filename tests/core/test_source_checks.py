@@ -82,13 +82,14 @@ def test_routing_policy_takes_every_threshold_from_the_registry():
 
 
 def test_every_flag_has_its_words_for_people():
+    from decision_support import source_entry
     from truthsieve.pipeline.evidence import FLAG_NAMES, flag_sentence
     from truthsieve.pipeline.routing import FLAG_SENTENCES
 
-    source = {
-        "own_best_risk": 0.0, "disagreement": 0.3, "disagreement_interval": [0.2, 0.4], "pull": 0.1, "balanced_accuracy": 0.5,
-        "kappa": 0.1, "gain_lower": 0.1, "drift_positive_rate_p": 0.001, "drift_disagreement_p": 0.001,
-    }
+    source = source_entry(
+        own_best_risk=0.0, disagreement=0.3, disagreement_interval=(0.2, 0.4), pull=0.1, balanced_accuracy=0.5,
+        kappa=0.1, gain_lower=0.1, drift_positive_rate_p=0.001, drift_disagreement_p=0.001,
+    )
     for code in FLAG_CODES:
         assert code in FLAG_SENTENCES and code in FLAG_NAMES, code
         assert flag_sentence(code, source, RoutingPolicy()) != code

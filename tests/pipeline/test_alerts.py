@@ -12,10 +12,11 @@ from email.message import EmailMessage
 
 import pytest
 
+from decision_support import source_entry
 from truthsieve.pipeline import demo
 from truthsieve.pipeline.alerts import compose_alerts
 from truthsieve.pipeline.evidence import FLAG_NAMES, flag_sentence
-from truthsieve.pipeline.screen import decide, ingest_batch
+from truthsieve.pipeline.screen import decide_night, ingest_batch
 
 # The default limits (pipeline/config.py RoutingPolicy), written as each sentence prints them:
 # max_disagreement 0.2 -> "20.0 %", min_balanced_accuracy 0.8 -> "80.0 %", min_kappa 0.5 -> "0.5",
@@ -41,7 +42,7 @@ def nights(tmp_path_factory):
     inbox = tmp_path_factory.mktemp("alerts-inbox")
     dates = demo.generate_inbox(inbox)
     config = demo.demo_config()
-    return config, {k: decide(ingest_batch(inbox, dates[k - 1], config), config, {})[0] for k in (demo.ABSENT_NIGHT, demo.STRATEGIC_FROM, demo.BROKEN_NIGHT)}
+    return config, {k: decide_night(ingest_batch(inbox, dates[k - 1], config), config, {}).decision for k in (demo.ABSENT_NIGHT, demo.STRATEGIC_FROM, demo.BROKEN_NIGHT)}
 
 
 class Inbox:
@@ -95,14 +96,15 @@ def test_quarantined_source_receives_its_file_row_and_column_over_smtp(nights, s
     body = parts(received[0])
     # the broken file (demo.py _nights): broken[17] = 2 is 1-based row 18, column label; row 41 repeats lot 3
     for text in (body["text/plain"], body["text/html"]):
-        assert f"batch_date={decision['batch_date']}/source_id={demo.BROKEN}/grades.parquet, row 18, column label" in text
+        assert f"batch_date={decision.batch_date}/source_id={demo.BROKEN}/grades.parquet, row 18, column label" in text
         assert "grade every lot 0 (reject) or 1 (accept)" in text  # what to fix
         assert "report.html" in text and "intake-platform@coop.example" in text  # where, whom to contact
     digest = next(m for rcpt, m in handler.messages if rcpt == "intake-platform@coop.example")
     text = parts(digest)["text/plain"]
-    for error in decision["errors"]:
-        row = error["row"] if error["row"] is not None else "(whole file)"
-        assert f"{error['file']}, row {row}" in text
+    assert decision.errors
+    for error in decision.errors:
+        row = error.row if error.row is not None else "(whole file)"
+        assert f"{error.file}, row {row}" in text
 
 
 def test_absent_source_is_told_the_night_went_on_without_it(nights):
@@ -116,12 +118,12 @@ def test_one_message_per_concerned_source_and_every_flag_sentence_has_its_limit(
     config, decisions = nights
     decision = decisions[demo.STRATEGIC_FROM]
     messages = compose_alerts(decision, config)
-    flagged = sorted(s["source_id"] for s in decision["sources"] if s["flags"])
+    flagged = sorted(s.source_id for s in decision.sources if s.flags)
     assert sorted(m["source_id"] for m in messages if m["kind"] == "source") == flagged
     seen = set()
-    for s in decision["sources"]:
-        message = next((m for m in messages if m["source_id"] == s["source_id"]), None)
-        for code in s["flags"]:
+    for s in decision.sources:
+        message = next((m for m in messages if m["source_id"] == s.source_id), None)
+        for code in s.flags:
             sentence = flag_sentence(code, s, config.routing)
             assert LIMIT_TEXT[code] in sentence, (code, sentence)
             assert sentence.index("[statistic:") > len(sentence) // 2  # plain words first, the statistic's name second
@@ -133,12 +135,49 @@ def test_one_message_per_concerned_source_and_every_flag_sentence_has_its_limit(
 
 @pytest.mark.parametrize("code", sorted(LIMIT_TEXT))
 def test_each_flag_sentence_states_value_limit_and_direction(code):
-    source = {
-        "own_best_risk": 0.003, "disagreement": 0.31, "disagreement_interval": [0.26, 0.36], "pull": 0.041, "balanced_accuracy": 0.72,
-        "kappa": 0.21, "gain_lower": 0.09, "positive_rate": 0.6, "drift_positive_rate_p": 0.0004, "drift_disagreement_p": 0.002,
-    }
+    source = source_entry(
+        own_best_risk=0.003, disagreement=0.31, disagreement_interval=(0.26, 0.36), pull=0.041, balanced_accuracy=0.72,
+        kappa=0.21, gain_lower=0.09, positive_rate=0.6, drift_positive_rate_p=0.0004, drift_disagreement_p=0.002,
+    )
     sentence = flag_sentence(code, source, demo.demo_config().routing, {"positive_rate": 0.5, "disagreement": 0.4})
     assert LIMIT_TEXT[code] in sentence
     direction = {"far_from_consensus": "above", "low_reliability": "below", "low_agreement": "below", "gain_from_lying": "at or above",
                  "pulls_fit": "at or above", "drift_positive_rate": "up from 50.0 %", "drift_disagreement": "down from 40.0 %", "rule_shaped": "at most"}
     assert direction[code] in sentence
+
+
+def test_a_hand_made_decision_gives_one_message_per_concerned_source_then_the_digest():
+    from decision_support import fitted
+    from truthsieve.pipeline.decision import Absent, Quarantined
+    from truthsieve.pipeline.records import ErrorRecord
+    from truthsieve.pipeline.routing import Reason
+
+    config = demo.demo_config()
+    broken = "batch_date=2026-11-03/source_id=farm-birch/grades.parquet"
+    decision = fitted(
+        route="review",
+        reasons=[Reason("source_quarantined", "farm-birch: quarantined", True, "farm-birch")],
+        sources=[source_entry("farm-cedar", flags=["pulls_fit"], pull=0.041), source_entry("coop-lab")],
+        quarantined=[Quarantined("farm-birch", (broken,))],
+        errors=[ErrorRecord(broken, 18, "label", "label_out_of_range", "label 2 is not a class")],
+        absent=[Absent("farm-fenwick", "no_folder"), Absent("farm-birch", "quarantined")],
+    )
+    messages = compose_alerts(decision, config)
+    # Concerned, in sorted order: farm-birch (quarantined), farm-cedar (flagged), farm-fenwick (absent);
+    # coop-lab has no flag and is not written to; the digest comes last.
+    assert [(m["kind"], m["source_id"]) for m in messages] == [
+        ("source", "farm-birch"), ("source", "farm-cedar"), ("source", "farm-fenwick"), ("digest", None)
+    ]
+    birch, cedar, fenwick, digest = messages
+    assert birch["to"] == ["grading@farm-birch.example"] and birch["subject"] == "[truthsieve] 2026-11-03: farm-birch: quarantined"
+    # label_out_of_range is truthsieve's grade_not_0_or_1 (records.CODE_OF_FORMER), fixed as evidence.FIXES says
+    assert f"{broken}, row 18, column label: label 2 is not a class [grade_not_0_or_1]. To fix: grade every lot 0 (reject) or 1 (accept)." in birch["body"]
+    assert cedar["subject"] == "[truthsieve] 2026-11-03: farm-cedar: pull high (pulls_fit)"
+    assert "rises by 0.0410, at or above the limit of 0.02" in cedar["body"]  # demo max_pull 0.02
+    assert "no grades from farm-fenwick arrived (no source_id=farm-fenwick/ folder)" in fenwick["body"]
+    # a review night: the drawn rule (moisture_pct > 14.05: reject; otherwise accept) would apply if approved
+    assert "(the drawn rule, moisture_pct > 14.05: reject; otherwise accept, would apply if approved)" in digest["body"]
+    assert digest["to"] == ["intake-platform@coop.example"]
+    assert digest["subject"] == "[truthsieve] 2026-11-03: review, 3 source(s) concerned, 1 input error(s)"
+    assert "[source_quarantined] farm-birch: quarantined (sends to review)" in digest["body"]
+    assert f"{broken}, row 18, column label: label 2 is not a class [grade_not_0_or_1; former label_out_of_range]" in digest["body"]

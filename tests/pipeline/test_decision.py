@@ -20,6 +20,7 @@ from truthsieve.pipeline import decision as decision_module
 from truthsieve.pipeline.config import load_config
 from truthsieve.pipeline.decision import Agreement, Decision, InputRecord, Quarantined, decision_json
 from truthsieve.pipeline.outputs import dumps_decision
+from truthsieve.pipeline.records import ErrorRecord
 from truthsieve.pipeline.routing import Reason
 from truthsieve.pipeline.screen import decide_night, ingest_batch
 
@@ -108,3 +109,86 @@ def test_a_night_without_a_fit_serialises_nulls_and_lists():
 def test_nan_numbers_become_null():
     assert decision_module._number(float("nan")) is None and decision_module._number(None) is None
     assert decision_module._number(0.25) == 0.25
+
+
+@pytest.fixture(scope="module")
+def published(tmp_path_factory):
+    """Every decision.json the demo and the K-class demo publish (current nights and earlier
+    revisions) and the golden files, as bytes."""
+    import os
+
+    from truthsieve.pipeline.cli import main
+
+    os.environ.pop("TRUTHSIEVE_DRAW_KEY", None)
+    root = tmp_path_factory.mktemp("published")
+    for scenario in ("grain", "grades"):
+        assert main(["demo", "--scenario", scenario, "--out", str(root / scenario)]) == 0
+    paths = sorted(root.glob("*/batch_date=*/decision.json")) + sorted(root.glob("*/.revisions/*/decision.json"))
+    return {str(p): p.read_bytes() for p in [*paths, *sorted(GOLDEN.glob("decision-*.json"))]}
+
+
+def test_a_published_decision_reads_back_to_the_same_bytes(published):
+    from truthsieve.pipeline.decision import decision_from_json
+
+    kinds = set()
+    for path, raw in published.items():
+        data = json.loads(raw)
+        typed = decision_from_json(data)
+        assert isinstance(typed, Decision), path
+        assert dumps_decision(decision_json(typed)) == raw, path
+        assert decision_json(typed) == data, path
+        kinds |= {k for k in ("classes", "errors", "absent", "earlier_draws", "quarantined") if data.get(k)}
+        if typed.errors:
+            assert [x.as_dict() for x in typed.errors] == data["errors"]  # the typed errors, not dicts
+    # the demo and the golden files between them hold every optional part (else the round trip proves less)
+    assert kinds == {"classes", "errors", "absent", "earlier_draws", "quarantined"}
+    assert len(published) >= 3 + 14 + 7  # golden, binary demo nights, grades nights
+
+
+def test_a_night_without_a_fit_and_with_notes_reads_back():
+    from truthsieve.pipeline.decision import decision_from_json
+    from truthsieve.pipeline.layout import Note
+
+    empty = Decision(
+        batch_date="2026-11-03", route="review", reasons=(Reason("no_items", "m", True),),
+        rule_class={"kind": "constant", "features": []}, shared_inputs=None, consensus=None, mechanism=None, draw=None,
+        sources=(), agreement=Agreement(), items_needed=None, n_items=None,
+        inputs=(InputRecord("batch_date=2026-11-03/items.parquet", "ab", None, False, None),),
+        quarantined=(Quarantined(None, ("batch_date=2026-11-03/items.parquet",)),), errors=(),
+        notes=(Note("stray_file", "batch_date=2026-11-03/x.txt", "not a source folder"),), absent=(),
+        config_sha256="c", draw_revision=0, earlier_draws=(), tool_version="t", classes=("low", "mid", "high"),
+    )
+    assert decision_from_json(json.loads(dumps_decision(decision_json(empty)))) == empty  # frozen dataclasses compare by value
+    from decision_support import fitted, source_entry
+
+    drawn = fitted(sources=[source_entry(flags=["pulls_fit"])], errors=[ErrorRecord("f", None, None, "empty_file", "m")])
+    assert decision_from_json(json.loads(dumps_decision(decision_json(drawn)))) == drawn  # tuples stay tuples, errors typed
+
+
+def test_a_decision_lacking_a_key_is_refused_but_for_keys_older_files_lack():
+    from truthsieve.pipeline.decision import decision_from_json
+
+    data = json.loads((GOLDEN / "decision-2026-11-03.json").read_bytes())
+    for key in ("route", "sources", "inputs", "agreement", "tool_version"):
+        with pytest.raises(KeyError, match=key):
+            decision_from_json({k: v for k, v in data.items() if k != key})
+    # written since a later version (the report and index read them with defaults before the typed decision)
+    older = decision_from_json({k: v for k, v in data.items() if k not in ("absent", "notes", "earlier_draws", "draw_revision", "config_sha256")})
+    assert (older.absent, older.notes, older.earlier_draws, older.draw_revision, older.config_sha256) == ((), (), (), 0, None)
+    assert older.sources == decision_from_json(data).sources
+
+
+def test_sources_parquet_holds_the_golden_decisions_numbers_and_rules(golden):
+    decided, expected = golden
+    rows = pq.read_table(pa.BufferReader(decided.files["sources.parquet"])).to_pylist()
+    published = json.loads(expected)["sources"]  # the golden file (before K classes: rules without "below")
+    assert [r["source_id"] for r in rows] == [s["source_id"] for s in published]
+    for row, source in zip(rows, published):
+        for name in ("weight", "items", "disagreement", "pull", "gain_lower", "kappa", "balanced_accuracy", "history_batches"):
+            assert row[name] == source[name], name
+        assert row["flags"] == source["flags"] and row["batch_date"] == json.loads(expected)["batch_date"]
+        assert (row["disagreement_low"], row["disagreement_high"]) == tuple(source["disagreement_interval"])
+        for name in ("own_best_rule", "others_rule", "gain_target_rule"):
+            rule = json.loads(row[name])
+            rule.pop("below", None)  # added with K classes; the golden files predate it
+            assert rule == source[name], name

@@ -2,19 +2,21 @@
 
 from __future__ import annotations
 
+from decision_support import fitted, source_entry
+from truthsieve.pipeline.decision import Absent
 from truthsieve.pipeline.report_story import spans, story
+from truthsieve.pipeline.routing import Reason
 
 RULE = {"kind": "threshold", "feature": "moisture_pct", "cut": 14.05, "above": 0}
 LOOSE = {**RULE, "cut": 15.55}
 
 
 def night(date, route="aggregate", sources=(), **extra):
-    return {"batch_date": date, "route": route, "reasons": extra.pop("reasons", []), "sources": list(sources), "quarantined": [], "errors": [],
-            "absent": [], "consensus": {"rule": LOOSE}, "draw": {"source_id": "a", "rule": RULE}, **extra}
+    return fitted(RULE, LOOSE, "a", batch_date=date, route=route, sources=list(sources), **extra)
 
 
 def source(name, flags=(), pull=0.0, gain=0.0, accuracy=0.95):
-    return {"source_id": name, "flags": list(flags), "pull": pull, "gain_lower": gain, "balanced_accuracy": accuracy, "others_rule": RULE}
+    return source_entry(name, flags=flags, pull=pull, gain_lower=gain, balanced_accuracy=accuracy, others_rule=RULE)
 
 
 def test_spans_join_consecutive_nights():
@@ -26,8 +28,7 @@ def test_story_names_the_puller_the_tempted_the_absent_and_the_review():
         night("2026-11-01", sources=[source("big", gain=0.07), source("a")]),
         night("2026-11-02", sources=[source("big", ["pulls_fit", "rule_shaped"], pull=0.05), source("a", pull=0.01)]),
         night("2026-11-03", sources=[source("big", ["pulls_fit", "rule_shaped"], pull=0.08), source("a")]),
-        night("2026-11-04", "review", [source("a")], absent=[{"source_id": "big", "why": "no_folder"}],
-              reasons=[{"code": "too_few_sources", "message": "only 1", "blocking": True}]),
+        night("2026-11-04", "review", [source("a")], absent=[Absent("big", "no_folder")], reasons=[Reason("too_few_sources", "only 1", True)]),
     ]
     lines = story(decisions)
     assert lines[0] == "4 nights from 2026-11-01 to 2026-11-04: 3 aggregated, 1 sent to review."

@@ -11,6 +11,7 @@ import pyarrow.parquet as pq
 import pytest
 import yaml
 
+from decision_support import source_entry
 from inboxes import cli
 from truthsieve.pipeline.config import Config, RoutingPolicy
 from truthsieve.pipeline.evidence import flag_sentence
@@ -39,7 +40,7 @@ def test_k_class_rules_name_their_classes():
 
 def test_flag_wording_for_more_than_two_classes():
     policy = RoutingPolicy()
-    source = {"balanced_accuracy": 0.5, "positive_rate": 0.9, "drift_positive_rate_p": 0.001}
+    source = source_entry(balanced_accuracy=0.5, positive_rate=0.9, drift_positive_rate_p=0.001)
     binary = flag_sentence("low_reliability", source, policy)
     assert "mean of accept and reject lots" in binary and "balanced accuracy" in binary
     many = flag_sentence("low_reliability", source, policy, classes=GRADES)

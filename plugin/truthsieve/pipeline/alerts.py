@@ -18,7 +18,9 @@ import html
 from collections.abc import Mapping
 
 from truthsieve.pipeline.config import Config
+from truthsieve.pipeline.decision import Decision
 from truthsieve.pipeline.evidence import FLAG_NAMES, fix_for, flag_sentence, past_rates
+from truthsieve.pipeline.records import ErrorRecord
 from truthsieve.pipeline.report_html import rule_text
 
 CAUTION = (
@@ -41,14 +43,18 @@ def _render(blocks: list) -> tuple[str, str]:
     return "\n\n".join(text) + "\n", "<html><body>" + "".join(markup) + "</body></html>"
 
 
-def _next(decision: Mapping) -> str:
-    drawn = (decision.get("draw") or {}).get("rule")
-    if decision["route"] == "aggregate":
-        return f"What happens next: the night was aggregated; the drawn rule ({rule_text(drawn, decision.get('classes'))}) is in force from tonight. Flags never hold a night back; the cooperative's quality team reads the evidence."
-    return "What happens next: the night awaits a reviewer's verdict; until then the rule in force stays" + (f" (the drawn rule, {rule_text(drawn, decision.get('classes'))}, would apply if approved)." if drawn else ".")
+def _next(decision: Decision) -> str:
+    drawn = decision.draw.rule if decision.draw else None
+    if decision.route == "aggregate":
+        return f"What happens next: the night was aggregated; the drawn rule ({rule_text(drawn, decision.classes)}) is in force from tonight. Flags never hold a night back; the cooperative's quality team reads the evidence."
+    return "What happens next: the night awaits a reviewer's verdict; until then the rule in force stays" + (f" (the drawn rule, {rule_text(drawn, decision.classes)}, would apply if approved)." if drawn else ".")
 
 
-def _footer(decision: Mapping, config: Config, report: str) -> list:
+def _error_line(x: ErrorRecord) -> str:
+    return f"{x.file}, row {x.row if x.row is not None else '(whole file)'}, column {x.column or '(none)'}: {x.message}"
+
+
+def _footer(decision: Decision, config: Config, report: str) -> list:
     contact = config.alerts.platform_address
     return [
         _next(decision),
@@ -58,40 +64,36 @@ def _footer(decision: Mapping, config: Config, report: str) -> list:
     ]
 
 
-def compose_alerts(decision: Mapping, config: Config, history: Mapping | None = None, report: str | None = None) -> list[dict]:
+def compose_alerts(decision: Decision, config: Config, history: Mapping | None = None, report: str | None = None) -> list[dict]:
     """Messages for the owners of the sources the night concerns and the platform digest, in a
     fixed order. ``history``: the sources' pooled earlier counts (for the direction of a
     shift); ``report``: where the night's report is (default: its path in the output folder)."""
-    registry, policy, date = config.registry, config.routing, decision["batch_date"]
+    registry, policy, date = config.registry, config.routing, decision.batch_date
     report = report or f"batch_date={date}/report.html in the truthsieve output folder"
     messages = []
     concerned: dict[str, list] = {}
-    for source in decision["sources"]:
-        if source["flags"]:
-            sentences = [f"{FLAG_NAMES[c]} ({c}): {flag_sentence(c, source, policy, past_rates(history, source['source_id']))}." for c in source["flags"]]
-            concerned[source["source_id"]] = [
-                f"Night {date}: the grades from {source['source_id']} show {len(sentences)} pattern(s) worth a look. They were used tonight like every member's.",
+    for source in decision.sources:
+        if source.flags:
+            sentences = [f"{FLAG_NAMES[c]} ({c}): {flag_sentence(c, source, policy, past_rates(history, source.source_id))}." for c in source.flags]
+            concerned[source.source_id] = [
+                f"Night {date}: the grades from {source.source_id} show {len(sentences)} pattern(s) worth a look. They were used tonight like every member's.",
                 sentences,
             ]
-    errors = decision["errors"]
-    for q in decision["quarantined"]:
-        if q["source_id"] is None:
+    errors = decision.errors
+    for q in decision.quarantined:
+        if q.source_id is None:
             continue
-        mine = [x for x in errors if f"source_id={q['source_id']}/" in x["file"]]
-        problems = [
-            f"{x['file']}, row {x['row'] if x['row'] is not None else '(whole file)'}, column {x['column'] or '(none)'}: "
-            f"{x['message']} [{x.get('code', x['rule'])}]. To fix: {fix_for(x.get('code', x['rule']))}."
-            for x in mine
-        ]
-        concerned[q["source_id"]] = [
-            f"Night {date}: the delivery from {q['source_id']} broke the input rules and was quarantined: it was left out tonight (treated as absent). "
+        mine = [x for x in errors if f"source_id={q.source_id}/" in x.file]
+        problems = [f"{_error_line(x)} [{x.code}]. To fix: {fix_for(x.code)}." for x in mine]
+        concerned[q.source_id] = [
+            f"Night {date}: the delivery from {q.source_id} broke the input rules and was quarantined: it was left out tonight (treated as absent). "
             "A corrected delivery for this night is screened again and goes to review.",
-            problems or [f"{path}: see the report" for path in q["files"]],
+            problems or [f"{path}: see the report" for path in q.files],
         ]
-    for a in decision.get("absent", []):
-        if a.get("why") == "no_folder":
-            concerned[a["source_id"]] = [
-                f"Night {date}: no grades from {a['source_id']} arrived (no source_id={a['source_id']}/ folder), so the night was decided without them. "
+    for a in decision.absent:
+        if a.why == "no_folder":
+            concerned[a.source_id] = [
+                f"Night {date}: no grades from {a.source_id} arrived (no source_id={a.source_id}/ folder), so the night was decided without them. "
                 "A late delivery is screened again and goes to review."
             ]
     for source_id in sorted(concerned):
@@ -99,20 +101,17 @@ def compose_alerts(decision: Mapping, config: Config, history: Mapping | None = 
         if not owner:
             continue
         body, markup = _render([*concerned[source_id], *_footer(decision, config, report)])
-        what = ", ".join(f"{FLAG_NAMES[c]} ({c})" for s in decision["sources"] if s["source_id"] == source_id for c in s["flags"])
-        kind = what or ("quarantined" if any(q["source_id"] == source_id for q in decision["quarantined"]) else "absent")
+        what = ", ".join(f"{FLAG_NAMES[c]} ({c})" for s in decision.sources if s.source_id == source_id for c in s.flags)
+        kind = what or ("quarantined" if any(q.source_id == source_id for q in decision.quarantined) else "absent")
         messages.append(
             {"kind": "source", "source_id": source_id, "to": [owner], "subject": f"[truthsieve] {date}: {source_id}: {kind}", "body": body, "html": markup}
         )
     platform = config.alerts.platform_address
-    if platform and (concerned or decision["route"] == "review" or errors):
-        blocks = [f"Night {date} was routed to {decision['route']}.", "Reasons:"]
-        blocks.append([f"[{r['code']}] {r['message']}" + (" (sends to review)" if r["blocking"] else "") for r in decision["reasons"]] or ["none"])
+    if platform and (concerned or decision.route == "review" or errors):
+        blocks = [f"Night {date} was routed to {decision.route}.", "Reasons:"]
+        blocks.append([f"[{r.code}] {r.message}" + (" (sends to review)" if r.blocking else "") for r in decision.reasons] or ["none"])
         if errors:
-            blocks += ["Every file and row at fault:", [
-                f"{x['file']}, row {x['row'] if x['row'] is not None else '(whole file)'}, column {x['column'] or '(none)'}: {x['message']} [{x.get('code', x['rule'])}; former {x['rule']}]"
-                for x in errors
-            ]]
+            blocks += ["Every file and row at fault:", [f"{_error_line(x)} [{x.code}; former {x.rule}]" for x in errors]]
         if concerned:
             blocks += ["Sources alerted:", [f"{s}: {concerned[s][0]}" for s in sorted(concerned)]]
         blocks += [f"The night's report: {report}", _next(decision), CAUTION]
@@ -120,7 +119,7 @@ def compose_alerts(decision: Mapping, config: Config, history: Mapping | None = 
         messages.append(
             {
                 "kind": "digest", "source_id": None, "to": [platform],
-                "subject": f"[truthsieve] {date}: {decision['route']}, {len(concerned)} source(s) concerned, {len(errors)} input error(s)",
+                "subject": f"[truthsieve] {date}: {decision.route}, {len(concerned)} source(s) concerned, {len(errors)} input error(s)",
                 "body": body, "html": markup,
             }
         )

@@ -14,11 +14,15 @@ import os
 import sys
 from collections.abc import Sequence
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from truthsieve import __version__
 from truthsieve.exceptions import BatchLockedError, ConfigError, InputError
 from truthsieve.pipeline.locations import check_out_location
 from truthsieve.pipeline.ledger_cli import LEDGER_COMMANDS, _date, _seconds, add_ledger_commands, run_ledger_command
+
+if TYPE_CHECKING:
+    from truthsieve.pipeline.decision import Decision
 
 EXIT_OK, EXIT_FAILURE, EXIT_INPUT, EXIT_LOCKED = 0, 1, 2, 3
 
@@ -124,31 +128,31 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-def summary(decision: dict, output: Path) -> str:
+def summary(decision: Decision, output: Path) -> str:
     """One screen of text: route, reasons, lottery, drawn rule, flagged sources, outputs."""
     from truthsieve.pipeline.report import rule_text
 
-    lines = [f"batch {decision['batch_date']}: route {decision['route'].upper()}"]
-    for reason in decision["reasons"]:
-        mark = "!" if reason["blocking"] else "-"
-        lines.append(f"  {mark} [{reason['code']}] {reason['message']}")
-    mechanism = decision["mechanism"]
+    classes = decision.classes
+    lines = [f"batch {decision.batch_date}: route {decision.route.upper()}"]
+    for reason in decision.reasons:
+        mark = "!" if reason.blocking else "-"
+        lines.append(f"  {mark} [{reason.code}] {reason.message}")
+    mechanism, consensus, draw = decision.mechanism, decision.consensus, decision.draw
     if mechanism:
-        lines.append(f"  consensus: {rule_text(decision['consensus']['rule'], decision.get('classes'))} (risk {decision['consensus']['risk']:.4f})")
-        ratio = "n/a" if mechanism["ratio"] is None else f"{mechanism['ratio']:.3f}"
+        lines.append(f"  consensus: {rule_text(consensus.rule, classes)} (risk {consensus.risk:.4f})")
+        ratio = "n/a" if mechanism.ratio is None else f"{mechanism.ratio:.3f}"
         lines.append(
-            f"  {mechanism['name']}: {len(mechanism['lottery'])} entries, expected risk {mechanism['expected_risk']:.4f}, "
-            f"ratio {ratio} (guarantee {mechanism['guarantee']:.3f}{'' if mechanism['guarantee_applies'] else ', not applicable'})"
+            f"  {mechanism.name}: {len(mechanism.lottery)} entries, expected risk {mechanism.expected_risk:.4f}, "
+            f"ratio {ratio} (guarantee {mechanism.guarantee:.3f}{'' if mechanism.guarantee_applies else ', not applicable'})"
         )
-        for entry in mechanism["lottery"]:
-            lines.append(f"      p={entry['probability']:.3f}  {entry['source_id'] or '-':<14} {rule_text(entry['rule'], decision.get('classes'))}")
-        draw = decision["draw"]
-        status = "in force from tonight" if decision["route"] == "aggregate" else "would apply if approved; not in force"
-        lines.append(f"  drawn (u={draw['u']:.6f}, {status}): {draw['source_id'] or '-'}: {rule_text(draw['rule'], decision.get('classes'))}")
-    flagged = [f"{s['source_id']} ({', '.join(s['flags'])})" for s in decision["sources"] if s["flags"]]
+        for entry in mechanism.lottery:
+            lines.append(f"      p={entry.probability:.3f}  {entry.source_id or '-':<14} {rule_text(entry.rule, classes)}")
+        status = "in force from tonight" if decision.route == "aggregate" else "would apply if approved; not in force"
+        lines.append(f"  drawn (u={draw.u:.6f}, {status}): {draw.source_id or '-'}: {rule_text(draw.rule, classes)}")
+    flagged = [f"{s.source_id} ({', '.join(s.flags)})" for s in decision.sources if s.flags]
     lines.append(f"  flagged: {'; '.join(flagged) if flagged else 'none'}")
-    for q in decision["quarantined"]:
-        lines.append(f"  quarantined: {q['source_id'] or 'items table'}: {len(q['files'])} file(s)")
+    for q in decision.quarantined:
+        lines.append(f"  quarantined: {q.source_id or 'items table'}: {len(q.files)} file(s)")
     lines.append(f"  outputs: {output}")
     return "\n".join(lines)
 
@@ -220,10 +224,10 @@ def backfill(
     routes = [r.route for r in results]
     print(f"{len(results)} nights screened: {routes.count('aggregate')} aggregated, {routes.count('review')} to review")
     for result in results:
-        flags = sum(1 for s in result.decision["sources"] if s["flags"])
+        flags = len(result.typed.flagged)
         print(f"  {result.batch_date}  {result.route:<9}  flagged sources: {flags}")
     print()
-    print(summary(results[-1].decision, results[-1].output))
+    print(summary(results[-1].typed, results[-1].output))
     print(f"\nlast report: {results[-1].output / 'report.html'}")
     print(f"history:     {index}")
     return EXIT_OK
@@ -241,7 +245,7 @@ def run(argv: Sequence[str] | None = None) -> int:
         store = _open_store(inbox, args.out, args.lock_timeout)  # last: a refused run leaves no --out folder behind
         result = screen(inbox, args.date, config, args.out, args.lock_timeout, args.workers, store)
         write_index(args.out) if store is None else store.write_index()
-        print(json.dumps(result.decision, sort_keys=True, indent=2) if args.json else summary(result.decision, result.output))
+        print(json.dumps(result.decision, sort_keys=True, indent=2) if args.json else summary(result.typed, result.output))
         return EXIT_OK
     if args.command == "backfill":
         first, last = dt.date.fromisoformat(args.first), dt.date.fromisoformat(args.last)

@@ -2,9 +2,10 @@
 
 :func:`build_decision` assembles a :class:`Decision` from the validated intake, the
 analysis, the route and the draw (performed by the decide step, not here);
-:func:`decision_json` is the only place that turns it into the contract's JSON form,
-and :func:`sources_table` / :func:`aggregate_table` the Parquet outputs. Rules travel
-in their JSON form (``RuleClass.describe``), already the contract's shape.
+:func:`decision_json` is the only place that turns it into the contract's JSON form and
+:func:`decision_from_json` the only one that reads a published night back (its inverse);
+:func:`sources_table` / :func:`aggregate_table` give the Parquet outputs. Rules and earlier
+draws travel in their JSON form (``RuleClass.describe``), already the contract's shape.
 """
 
 from __future__ import annotations
@@ -152,10 +153,7 @@ class Decision:
 
 
 def _number(value):
-    if value is None:
-        return None
-    value = float(value)
-    return None if not np.isfinite(value) else value
+    return None if value is None or not np.isfinite(float(value)) else float(value)
 
 
 def absent_sources(intake: Intake, config: Config) -> tuple[Absent, ...]:
@@ -251,27 +249,49 @@ def decision_json(decision: Decision) -> dict:
     return plain
 
 
-def dumps_rule(rule: Mapping) -> str:
-    return json.dumps(rule, sort_keys=True)
+def _record(kind, data: Mapping, **typed):
+    """A dataclass from its JSON object: each field's value as it stands, but for ``typed``."""
+    return kind(**{f.name: typed[f.name] if f.name in typed else data[f.name] for f in fields(kind)})
+
+
+_LATER_KEYS = {"absent": [], "notes": [], "earlier_draws": [], "draw_revision": 0, "config_sha256": None}  # what older files mean by lacking them
+
+
+def decision_from_json(data: Mapping) -> Decision:
+    """A parsed ``decision.json`` as the typed :class:`Decision`, :func:`decision_json`'s inverse (a key missing raises KeyError)."""
+    data = {**_LATER_KEYS, **data}
+    mechanism, classes = data["mechanism"], data.get("classes")
+    if mechanism is not None:
+        mechanism = _record(Mechanism, mechanism, lottery=tuple(_record(LotteryChoice, x) for x in mechanism["lottery"]))
+    return _record(
+        Decision, data, reasons=tuple(Reason(**r) for r in data["reasons"]), mechanism=mechanism,
+        consensus=None if data["consensus"] is None else _record(Consensus, data["consensus"]),
+        draw=None if data["draw"] is None else _record(DrawnRule, data["draw"]), sources=tuple(
+            _record(SourceEntry, s, disagreement_interval=tuple(s["disagreement_interval"]), flags=tuple(s["flags"])) for s in data["sources"]
+        ),
+        agreement=_record(Agreement, data["agreement"]), inputs=tuple(_record(InputRecord, x) for x in data["inputs"]),
+        quarantined=tuple(Quarantined(q["source_id"], tuple(q["files"])) for q in data["quarantined"]),
+        errors=tuple(_record(ErrorRecord, x) for x in data["errors"]), notes=tuple(_record(Note, n) for n in data["notes"]),
+        absent=tuple(_record(Absent, a) for a in data["absent"]), earlier_draws=tuple(data["earlier_draws"]),
+        classes=None if classes is None else tuple(classes),
+    )
+
+
+# not a column where they stand: the interval is its two ends, the rules JSON text after the counts
+_NOT_COLUMNS = ("disagreement_interval", "own_best_rule", "others_rule", "gain_target_rule")
 
 
 def sources_table(analysis: BatchAnalysis, decision: Decision) -> pa.Table:
     """``sources.parquet``: one row per source, the decision's numbers plus raw counts."""
     rows = []
     for report, source in zip(analysis.sources, decision.sources):
-        entry = _plain(source)
-        row = {k: v for k, v in entry.items() if not isinstance(v, (dict, list)) or k == "flags"}
-        row.update(
-            positives=report.positives,
-            disagreements=report.disagreements,
-            disagreement_low=report.disagreement_low,
-            disagreement_high=report.disagreement_high,
-            own_best_rule=dumps_rule(source.own_best_rule),
-            gain_target_rule=dumps_rule(source.gain_target_rule),
-            others_rule=dumps_rule(source.others_rule),
-            batch_date=decision.batch_date,
-        )
-        rows.append(row)
+        row = {f.name: getattr(source, f.name) for f in fields(SourceEntry) if f.name not in _NOT_COLUMNS}
+        rows.append({
+            **row, "flags": list(source.flags), "positives": report.positives, "disagreements": report.disagreements,
+            "disagreement_low": report.disagreement_low, "disagreement_high": report.disagreement_high,
+            **{name: json.dumps(getattr(source, name), sort_keys=True) for name in ("own_best_rule", "gain_target_rule", "others_rule")},
+            "batch_date": decision.batch_date,
+        })
     return pa.Table.from_pylist(rows)
 
 

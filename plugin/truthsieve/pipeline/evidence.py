@@ -9,8 +9,12 @@ measures, used by the report, the index and the alerts (the code stays visible b
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from typing import TYPE_CHECKING
 
 from truthsieve.pipeline.config import RoutingPolicy
+
+if TYPE_CHECKING:
+    from truthsieve.pipeline.decision import SourceEntry
 
 # decision.json flag code -> the name of what it measures
 FLAG_NAMES = {
@@ -36,7 +40,7 @@ def _shift(now: float | None, before: float | None) -> str:
     return f"{way} from {_pct(before)} over its earlier nights to {_pct(now)} tonight"
 
 
-def flag_sentence(code: str, source: Mapping, policy: RoutingPolicy, past: Mapping | None = None, classes: Sequence[str] | None = None) -> str:
+def flag_sentence(code: str, source: SourceEntry, policy: RoutingPolicy, past: Mapping | None = None, classes: Sequence[str] | None = None) -> str:
     """One flag of one source: plain words first, the statistic's name second, the value
     beside its limit and the direction that trips it. ``past`` may hold the source's
     pooled earlier ``positive_rate`` and ``disagreement`` (for the direction of a shift).
@@ -47,54 +51,54 @@ def flag_sentence(code: str, source: Mapping, policy: RoutingPolicy, past: Mappi
     many = classes is not None and len(classes) > 2
     if code == "rule_shaped":
         return (
-            f"these grades follow a single cut almost exactly: a rule of the class misses only {_pct(source['own_best_risk'])} of them "
-            f"(tolerance: at most {_pct(policy.rule_shape_tolerance)}), while they differ from the shared fit on {_pct(source['disagreement'])} "
-            f"of lots (looked at from {_pct(policy.rule_shape_min_disagreement)}) or pull it {source['pull']:.4f} (limit {policy.max_pull:g}). "
+            f"these grades follow a single cut almost exactly: a rule of the class misses only {_pct(source.own_best_risk)} of them "
+            f"(tolerance: at most {_pct(policy.rule_shape_tolerance)}), while they differ from the shared fit on {_pct(source.disagreement)} "
+            f"of lots (looked at from {_pct(policy.rule_shape_min_disagreement)}) or pull it {source.pull:.4f} (limit {policy.max_pull:g}). "
             "Careful graders can do this; so can a report tuned to one rule [statistic: own-best-rule risk]"
         )
     if code == "far_from_consensus":
-        low, high = source["disagreement_interval"]
+        low, high = source.disagreement_interval
         return (
-            f"these grades differ from the shared fit on {_pct(source['disagreement'])} of lots, above the limit of "
+            f"these grades differ from the shared fit on {_pct(source.disagreement)} of lots, above the limit of "
             f"{_pct(policy.max_disagreement)} ({100 * policy.confidence:g} % range {_pct(low)} to {_pct(high)}) [statistic: disagreement with the consensus rule, Wilson interval]"
         )
     if code == "low_reliability" and many:
         return (
-            f"estimated from all members' grades together, these grades are right on {_pct(source['balanced_accuracy'])} of lots "
+            f"estimated from all members' grades together, these grades are right on {_pct(source.balanced_accuracy)} of lots "
             f"(mean over the {len(classes)} classes of the share of each class's lots graded right), below the minimum of "
             f"{_pct(policy.min_balanced_accuracy)} [statistic: Dawid-Skene macro-averaged recall]"
         )
     if code == "low_reliability":
         return (
-            f"estimated from all members' grades together, these grades are right on {_pct(source['balanced_accuracy'])} of lots "
+            f"estimated from all members' grades together, these grades are right on {_pct(source.balanced_accuracy)} of lots "
             f"(mean of accept and reject lots), below the minimum of {_pct(policy.min_balanced_accuracy)} [statistic: Dawid-Skene balanced accuracy]"
         )
     if code == "low_agreement":
         return (
-            f"beyond what chance gives, these grades agree little with the shared fit's grades: {source['kappa']:.3f}, "
+            f"beyond what chance gives, these grades agree little with the shared fit's grades: {source.kappa:.3f}, "
             f"below the minimum of {policy.min_kappa:g} [statistic: Cohen's kappa]"
         )
     if code == "gain_from_lying":
         return (
             f"if the plain consensus fit were published, grades other than these could lower this source's own error by "
-            f"{source['gain_lower']:.4f} or more, at or above the limit of {policy.max_gain:g}; the lottery used here removes that "
+            f"{source.gain_lower:.4f} or more, at or above the limit of {policy.max_gain:g}; the lottery used here removes that "
             "advantage [statistic: gain under ERM]"
         )
     if code == "pulls_fit":
         return (
-            f"these grades move the shared fit so that the other members' weighted error rises by {source['pull']:.4f}, "
+            f"these grades move the shared fit so that the other members' weighted error rises by {source.pull:.4f}, "
             f"at or above the limit of {policy.max_pull:g} [statistic: pull on the consensus fit]"
         )
     if code == "drift_positive_rate":
         what = f"graded other than {classes[0]} (class 0)" if many else "accepted"
         return (
-            f"the share of lots {what} moved: {_shift(source.get('positive_rate'), past.get('positive_rate'))}; adjusted p = "
-            f"{source['drift_positive_rate_p']:.2g}, below {policy.drift_alpha:g} [statistic: two-proportion z-test, Holm-adjusted]"
+            f"the share of lots {what} moved: {_shift(source.positive_rate, past.get('positive_rate'))}; adjusted p = "
+            f"{source.drift_positive_rate_p:.2g}, below {policy.drift_alpha:g} [statistic: two-proportion z-test, Holm-adjusted]"
         )
     if code == "drift_disagreement":
         return (
-            f"the disagreement with the shared fit moved: {_shift(source.get('disagreement'), past.get('disagreement'))}; adjusted p = "
-            f"{source['drift_disagreement_p']:.2g}, below {policy.drift_alpha:g} [statistic: two-proportion z-test, Holm-adjusted]"
+            f"the disagreement with the shared fit moved: {_shift(source.disagreement, past.get('disagreement'))}; adjusted p = "
+            f"{source.drift_disagreement_p:.2g}, below {policy.drift_alpha:g} [statistic: two-proportion z-test, Holm-adjusted]"
         )
     return code
 

@@ -111,7 +111,7 @@ def finish_demo(out: Path, inbox: Path | None = None) -> None:
         if late is not None:
             print(f"\n{demo.ABSENT} delivers its file for {date} late: {late}")
             result = screen(inbox, date, demo.demo_config(), out)
-            print(summary(result.decision, result.output))
+            print(summary(result.typed, result.output))
     print(f"\nverdicts of {demo.REVIEWER}:")
     for line in demo.record_demo_verdicts(out, _now()):
         print(f"  {line}")

@@ -11,6 +11,7 @@ from collections.abc import Mapping, Sequence
 
 import numpy as np
 
+from truthsieve.pipeline.decision import Decision, SourceEntry
 from truthsieve.pipeline.report_html import PALETTE as P
 from truthsieve.pipeline.report_html import e, f, table
 
@@ -41,12 +42,12 @@ def _svg(inner: Sequence[str], label: str) -> str:
     )
 
 
-def pull_chart(sources: Sequence[Mapping], max_pull: float | None) -> str:
+def pull_chart(sources: Sequence[SourceEntry], max_pull: float | None) -> str:
     """Disagreement (x) against pull (y): one numbered dot per source, a legend table with the
     exact values, the pull limit as a dashed line. Flagged sources are amber squares,
     unflagged ones blue circles (shape and colour both say it)."""
-    xs = [s["disagreement"] for s in sources] or [0.0]
-    ys = [s.get("pull") or 0.0 for s in sources] or [0.0]
+    xs = [s.disagreement for s in sources] or [0.0]
+    ys = [s.pull or 0.0 for s in sources] or [0.0]
     x_max = max(0.05, max(xs) * 1.15)
     y_max = max(0.02, max(ys) * 1.15, (max_pull or 0) * 1.3)
 
@@ -65,15 +66,15 @@ def pull_chart(sources: Sequence[Mapping], max_pull: float | None) -> str:
         parts.append(f"<text x='{W - PAD}' y='{y - 4:.1f}' font-size='10' text-anchor='end' fill='{P['heed_ink']}'>pull limit {max_pull:g}</text>")
     rows = []
     for k, s in enumerate(sources, start=1):
-        x, y = px(s["disagreement"], s.get("pull") or 0.0)
-        data = f"data-source='{e(s['source_id'])}' data-pull='{s.get('pull')!r}' data-disagreement='{s['disagreement']!r}'"
-        if s["flags"]:
+        x, y = px(s.disagreement, s.pull or 0.0)
+        data = f"data-source='{e(s.source_id)}' data-pull='{s.pull!r}' data-disagreement='{s.disagreement!r}'"
+        if s.flags:
             parts.append(f"<rect x='{x - 7:.1f}' y='{y - 7:.1f}' width='14' height='14' fill='{P['heed']}' stroke='{P['ink']}' {data}/>")
         else:
             parts.append(f"<circle cx='{x:.1f}' cy='{y:.1f}' r='7' fill='{P['calm']}' stroke='{P['ink']}' {data}/>")
-        colour = P["ink"] if s["flags"] else "#fff"
+        colour = P["ink"] if s.flags else "#fff"
         parts.append(f"<text x='{x:.1f}' y='{y + 3.5:.1f}' font-size='10' text-anchor='middle' fill='{colour}'>{k}</text>")
-        rows.append([str(k), e(s["source_id"]), f(s["disagreement"]), f"<span class='pull'>{f(s.get('pull'))}</span>", "flagged" if s["flags"] else "&ndash;"])
+        rows.append([str(k), e(s.source_id), f(s.disagreement), f"<span class='pull'>{f(s.pull)}</span>", "flagged" if s.flags else "&ndash;"])
     chart = _svg(parts, "disagreement against pull, one numbered mark per source")
     legend = table(["#", "source", "disagreement", "pull", ""], rows, text_columns=(1, 4))
     return f"<div class='pair'><div>{chart}</div><div id='pull-legend'>{legend}</div></div>"
@@ -181,15 +182,16 @@ def class_plot(values: np.ndarray, majority: np.ndarray, share: np.ndarray, feat
     return _svg(parts, f"{feature}: majority class of each lot and its share, with the cuts")
 
 
-def history_strip(recent: Sequence[Mapping], decision: Mapping) -> str:
-    """A table: one row per source, one column per night (the earlier nights given, then
-    tonight): each cell holds that night's flags as chips, or quarantined / absent; the
-    header row carries each night's route."""
-    nights = [*recent, {"batch_date": decision["batch_date"], "route": decision["route"], "flags": {s["source_id"]: s["flags"] for s in decision["sources"]},
-                        "quarantined": [q["source_id"] for q in decision["quarantined"] if q["source_id"]],
-                        "absent": [a["source_id"] for a in decision.get("absent", []) if a.get("why") != "quarantined"]}]
+def history_strip(recent: Sequence[Mapping], decision: Decision) -> str:
+    """A table: one row per source, one column per night (the earlier nights given, as
+    :func:`~truthsieve.pipeline.report_history.night_brief` gives them, then tonight): each
+    cell holds that night's flags as chips, or quarantined / absent; the header row carries
+    each night's route."""
     from truthsieve.pipeline.evidence import FLAG_NAMES
+    from truthsieve.pipeline.report_history import night_brief
     from truthsieve.pipeline.report_html import chip, route_badge
+
+    nights = [*recent, night_brief(decision)]
 
     sources = sorted({s for n in nights for s in [*n["flags"], *n["quarantined"], *n["absent"]]})
     headers = ["source", *(n["batch_date"][5:] for n in nights)]

@@ -3,21 +3,21 @@
 from __future__ import annotations
 
 import json
-from collections.abc import Mapping
 
+from truthsieve.pipeline.decision import Decision, decision_from_json
 from truthsieve.pipeline.outputs import as_location, batch_location, published_dates
 
 STRIP_NIGHTS = 7
 
 
-def night_brief(decision: Mapping) -> dict:
+def night_brief(decision: Decision) -> dict:
     """What the strip needs of one night: route, flags per source, quarantined, absent."""
     return {
-        "batch_date": decision["batch_date"],
-        "route": decision.get("route"),
-        "flags": {s["source_id"]: list(s["flags"]) for s in decision.get("sources", [])},
-        "quarantined": [q["source_id"] for q in decision.get("quarantined", []) if q.get("source_id")],
-        "absent": [a["source_id"] for a in decision.get("absent", []) if a.get("why") != "quarantined"],
+        "batch_date": decision.batch_date,
+        "route": decision.route,
+        "flags": {s.source_id: list(s.flags) for s in decision.sources},
+        "quarantined": [q.source_id for q in decision.quarantined if q.source_id],
+        "absent": [a.source_id for a in decision.absent if a.why != "quarantined"],
     }
 
 
@@ -30,7 +30,7 @@ def recent_nights(out, batch_date: str, count: int = STRIP_NIGHTS) -> list[dict]
     for date in dates[-count:]:
         path = batch_location(out, date) / "decision.json"
         try:
-            briefs.append(night_brief(json.loads(path.read_text())))
-        except (OSError, ValueError, KeyError):
+            briefs.append(night_brief(decision_from_json(json.loads(path.read_text()))))
+        except (OSError, ValueError, KeyError, TypeError):
             continue
     return briefs

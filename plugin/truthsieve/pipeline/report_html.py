@@ -88,7 +88,7 @@ def class_text(index: int, classes: Sequence[str] | None = None) -> str:
 
 
 def rule_text(rule: Mapping | None, classes: Sequence[str] | None = None) -> str:
-    """One rule in words; ``classes`` are the decision's class names (``decision.get("classes")``)."""
+    """One rule in words; ``classes`` are the decision's class names (``Decision.classes``)."""
     if not rule:
         return "none"
     if rule["kind"] == "constant":

@@ -8,77 +8,78 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 
+from truthsieve.pipeline.decision import Decision
 from truthsieve.pipeline.evidence import FLAG_NAMES
 from truthsieve.pipeline.report_html import CAUTION, chip, e, f, page, route_badge, rule_text, table
 
 
-def top_pull(decision: Mapping) -> str:
+def top_pull(decision: Decision) -> str:
     """The source that pulled the fit beyond the limit (flag ``pulls_fit``) with its pull, or a dash."""
-    pulled = [s for s in decision.get("sources", []) if "pulls_fit" in s["flags"]]
+    pulled = [s for s in decision.sources if "pulls_fit" in s.flags]
     if not pulled:
         return "&ndash;"
-    s = max(pulled, key=lambda x: x["pull"])
-    return f"{e(s['source_id'])} <span class='pull nowrap'>{f(s['pull'])}</span>"
+    s = max(pulled, key=lambda x: x.pull)
+    return f"{e(s.source_id)} <span class='pull nowrap'>{f(s.pull)}</span>"
 
 
-def _flags_cell(decision: Mapping) -> str:
+def _flags_cell(decision: Decision) -> str:
     lines = []
-    for s in decision.get("sources", []):
-        if s["flags"]:
-            lines.append(f"{e(s['source_id'])}: " + "".join(chip(FLAG_NAMES.get(c, c), title=c) for c in s["flags"]))
-    for q in decision.get("quarantined", []):
-        lines.append(f"{e(q['source_id'] or 'items table')}: {chip('quarantined', 'faint')}")
-    for a in decision.get("absent", []):
-        if a.get("why") == "no_folder":
-            lines.append(f"{e(a['source_id'])}: {chip('absent', 'faint')}")
+    for s in decision.sources:
+        if s.flags:
+            lines.append(f"{e(s.source_id)}: " + "".join(chip(FLAG_NAMES.get(c, c), title=c) for c in s.flags))
+    for q in decision.quarantined:
+        lines.append(f"{e(q.source_id or 'items table')}: {chip('quarantined', 'faint')}")
+    for a in decision.absent:
+        if a.why == "no_folder":
+            lines.append(f"{e(a.source_id)}: {chip('absent', 'faint')}")
     return "<br>".join(lines) or "&ndash;"
 
 
-def totals(decisions: Sequence[Mapping]) -> list[dict]:
+def totals(decisions: Sequence[Decision]) -> list[dict]:
     """Per source: nights with valid labels, flagged, quarantined, absent, and nights a
     blocking reason named it (it sent the night to review)."""
     names = sorted(
-        {s["source_id"] for d in decisions for s in d.get("sources", [])}
-        | {q["source_id"] for d in decisions for q in d.get("quarantined", []) if q["source_id"]}
-        | {a["source_id"] for d in decisions for a in d.get("absent", [])}
+        {s.source_id for d in decisions for s in d.sources}
+        | {q.source_id for d in decisions for q in d.quarantined if q.source_id}
+        | {a.source_id for d in decisions for a in d.absent}
     )
     out = []
     for name in names:
         row = {"source_id": name, "valid": 0, "flagged": 0, "quarantined": 0, "absent": 0, "review": 0}
         for d in decisions:
-            mine = next((s for s in d.get("sources", []) if s["source_id"] == name), None)
+            mine = next((s for s in d.sources if s.source_id == name), None)
             row["valid"] += mine is not None
-            row["flagged"] += bool(mine and mine["flags"])
-            row["quarantined"] += any(q["source_id"] == name for q in d.get("quarantined", []))
-            row["absent"] += any(a["source_id"] == name and a.get("why") == "no_folder" for a in d.get("absent", []))
-            row["review"] += any(r["blocking"] and r.get("source_id") == name for r in d.get("reasons", []))
+            row["flagged"] += bool(mine and mine.flags)
+            row["quarantined"] += any(q.source_id == name for q in d.quarantined)
+            row["absent"] += any(a.source_id == name and a.why == "no_folder" for a in d.absent)
+            row["review"] += any(r.blocking and r.source_id == name for r in d.reasons)
         out.append(row)
     return out
 
 
-def render_index(decisions: Sequence[Mapping], ledger_entries: Sequence[Mapping] = ()) -> str:
+def render_index(decisions: Sequence[Decision], ledger_entries: Sequence[Mapping] = ()) -> str:
     from truthsieve.pipeline.ledger import derive, nights
     from truthsieve.pipeline.report_ledger import verdict_cell
     from truthsieve.pipeline.report_story import story
 
     ledger_nights = nights(ledger_entries)
     now = derive(ledger_entries)
-    decisions = sorted(decisions, key=lambda d: d["batch_date"])
+    decisions = sorted(decisions, key=lambda d: d.batch_date)
     rows = []
     for d in decisions:
-        ratio = (d.get("mechanism") or {}).get("ratio")
-        date = e(d["batch_date"])
-        then = derive(ledger_entries, d["batch_date"])
+        ratio = d.mechanism.ratio if d.mechanism else None
+        date = e(d.batch_date)
+        then = derive(ledger_entries, d.batch_date)
         rows.append(
             [
-                f"<a href='batch_date={date}/report.html'>{date}</a>", route_badge(d["route"]), verdict_cell(ledger_nights.get(d["batch_date"])),
-                e(rule_text(then["rule"], d.get("classes"))), top_pull(d), f(ratio, 3), _flags_cell(d),
+                f"<a href='batch_date={date}/report.html'>{date}</a>", route_badge(d.route), verdict_cell(ledger_nights.get(d.batch_date)),
+                e(rule_text(then["rule"], d.classes)), top_pull(d), f(ratio, 3), _flags_cell(d),
             ]
         )
     if now["rule"]:
         how = now["event"] or {}
         by = f", approved by {e(how['by'])}" if how.get("kind") == "verdict" else ""
-        in_force = f"Rule in force now: <strong>{e(rule_text(now['rule'], decisions[-1].get('classes') if decisions else None))}</strong> since {e(now['since'])}{by} (ledger line {e(now['seq'])})."
+        in_force = f"Rule in force now: <strong>{e(rule_text(now['rule'], decisions[-1].classes if decisions else None))}</strong> since {e(now['since'])}{by} (ledger line {e(now['seq'])})."
     else:
         in_force = "Rule in force now: <strong>none</strong> (no night aggregated or approved yet)."
     told = "".join(f"<li>{e(line)}</li>" for line in story(decisions, ledger_entries))

@@ -91,11 +91,11 @@ def decide_night(
         blocking = [r.as_dict() for r in decision.reasons if r.blocking]
         review = {"batch_date": intake.batch_date, "status": "awaiting_review", "blocking_reasons": blocking, "note": REVIEW_NOTE, "verdict": None}
         files["review.json"] = dumps_decision(review)
-    alerts = compose_alerts(as_json, config, history)
+    alerts = compose_alerts(decision, config, history)
     files["alerts.json"] = dumps_decision({"batch_date": intake.batch_date, "messages": alerts})
     if intake.errors:
         files["quarantine/errors.json"] = dumps_decision({"batch_date": intake.batch_date, "errors": as_json["errors"]})
-    files["report.html"] = render_report(as_json, analysis, in_force_before, recent, config.routing).encode()
+    files["report.html"] = render_report(decision, analysis, in_force_before, recent, config.routing).encode()
     return Decided(decision, files, analysis)
 
 

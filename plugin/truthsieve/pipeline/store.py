@@ -254,11 +254,12 @@ def _alive(pid: int) -> bool:
 
 def write_index(out):
     """Render ``index.html`` from every night's decision (``out`` may be object storage)."""
+    from truthsieve.pipeline.decision import decision_from_json
     from truthsieve.pipeline.outputs import write_index_page
     from truthsieve.pipeline.report import render_index
 
     out = as_location(out)
-    decisions = [json.loads((batch_location(out, d) / "decision.json").read_text()) for d in published_dates(out)]
+    decisions = [decision_from_json(json.loads((batch_location(out, d) / "decision.json").read_text())) for d in published_dates(out)]
     entries = []
     if isinstance(out, Path):
         from truthsieve.pipeline.ledger import read_ledger
