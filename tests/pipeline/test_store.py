@@ -165,3 +165,20 @@ def test_work_files_are_fsynced_only_in_a_shared_work_area(tmp_path, monkeypatch
     store.write_work("2026-01-01", "night/fit.json", b'{"rule": 3}')
     assert store.read_work("2026-01-01", "night/fit.json") == b'{"rule": 3}'
     assert bool(calls) is synced
+
+
+def test_the_index_names_a_night_whose_decision_cannot_be_read_and_lists_the_others(tmp_path):
+    from truthsieve.pipeline.outputs import batch_output
+    from truthsieve.pipeline.store import write_index
+
+    inbox, out = tmp_path / "inbox", tmp_path / "out"
+    write_batch(inbox, DATE, seed=3)
+    config = load_config(write_config(tmp_path / "c.yaml"))
+    night.screen_night(LocalStore(inbox, out), DATE, config)
+    broken = "2026-11-04"
+    batch_output(out, broken).mkdir(parents=True)
+    (batch_output(out, broken) / "decision.json").write_text('{"batch_date": "2026-11-04"}')  # no route, no sources
+    page = write_index(out).read_text()
+    assert f"batch_date={DATE}/report.html" in page  # the readable night is listed
+    assert f"batch_date={broken}/report.html" not in page
+    assert f"Not listed: {broken}" in page and "KeyError" in page

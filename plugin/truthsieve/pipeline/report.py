@@ -288,10 +288,10 @@ def render_report(decision: Decision, analysis=None, in_force_before: Mapping | 
     return page(f"truthsieve batch {date}", body)
 
 
-def render_index(decisions: Sequence[Decision], ledger_entries: Sequence[Mapping] = ()) -> str:
+def render_index(decisions: Sequence[Decision], ledger_entries: Sequence[Mapping] = (), unreadable: Mapping[str, str] = {}) -> str:
     from truthsieve.pipeline.report_index import render_index as render
 
-    return render(decisions, ledger_entries)
+    return render(decisions, ledger_entries, unreadable)
 
 
 __all__ = ["render_report", "render_index", "rule_text", "route_badge", "CAUTION"]

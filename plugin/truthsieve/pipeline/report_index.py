@@ -57,7 +57,9 @@ def totals(decisions: Sequence[Decision]) -> list[dict]:
     return out
 
 
-def render_index(decisions: Sequence[Decision], ledger_entries: Sequence[Mapping] = ()) -> str:
+def render_index(decisions: Sequence[Decision], ledger_entries: Sequence[Mapping] = (), unreadable: Mapping[str, str] = {}) -> str:
+    """:param unreadable: date -> why, for nights whose ``decision.json`` is not a decision
+        (named under the table rather than silently left out)."""
     from truthsieve.pipeline.ledger import derive, nights
     from truthsieve.pipeline.report_ledger import verdict_cell
     from truthsieve.pipeline.report_story import story
@@ -98,6 +100,7 @@ def render_index(decisions: Sequence[Decision], ledger_entries: Sequence[Mapping
             ["night", "route", "verdict", "rule in force after", "who pulled the fit", "ratio", "flags, quarantined and absent sources"],
             rows, text_columns=(0, 1, 2, 3, 4, 6), nowrap=(0, 1),
         )
+        + "".join(f"<p class='unreadable'><strong>Not listed: {e(date)}</strong>, its decision.json could not be read ({e(why)}).</p>" for date, why in sorted(unreadable.items()))
         + "<p><strong>ratio</strong>: the lottery's expected risk divided by the plain ERM fit's risk, the price paid tonight for a draw no member "
         "can bend (1 means none). <strong>who pulled the fit</strong>: the member whose grades raised the others' error the most by moving the "
         "plain fit, when above the limit, with its pull.</p>"

@@ -259,13 +259,18 @@ def write_index(out):
     from truthsieve.pipeline.report import render_index
 
     out = as_location(out)
-    decisions = [decision_from_json(json.loads((batch_location(out, d) / "decision.json").read_text())) for d in published_dates(out)]
+    decisions, unreadable = [], {}
+    for date in published_dates(out):
+        try:  # one night's broken or foreign file must not stop the index of the others
+            decisions.append(decision_from_json(json.loads((batch_location(out, date) / "decision.json").read_text())))
+        except (OSError, ValueError, KeyError, TypeError) as error:
+            unreadable[date] = f"{type(error).__name__}: {error}"
     entries = []
     if isinstance(out, Path):
         from truthsieve.pipeline.ledger import read_ledger
 
         entries = read_ledger(out)
-    page = render_index(decisions, entries).encode()
+    page = render_index(decisions, entries, unreadable).encode()
     if isinstance(out, Path):
         return write_index_page(out, page)
     path = out / "index.html"
