@@ -68,3 +68,12 @@ def test_each_error_code_has_its_fix_and_an_unknown_one_the_general_advice():
     assert fix_for("link_outside_inbox") == "deliver the file itself, not a link"
     general = fix_for("not_a_code")
     assert general == "correct the file as the message says and deliver it again" and general not in FIXES.values()
+
+
+def test_every_renamed_error_code_has_its_own_fix():
+    # A sender told only "correct the file as the message says" for a code truthsieve names
+    # itself (records.CODE_OF_FORMER) is left guessing; each such code carries a fix.
+    from truthsieve.pipeline.records import CODE_OF_FORMER
+
+    assert sorted(code for code in set(CODE_OF_FORMER.values()) if code not in FIXES) == []
+    assert "registered id" in fix_for("source_name_not_allowed")

@@ -130,6 +130,14 @@ FIXES = {
     "folder_holds_no_labels": "put the grades file (*.parquet) into the folder",
     "misnamed_label_file": "name the grades file *.parquet",
     "link_outside_inbox": "deliver the file itself, not a link",
+    "source_name_not_allowed": "name the folder source_id=ID with the registered id: a letter or digit, then up to 63 letters, digits, '_', '.' or '-'",
+    "control_character_in_id": "write each item_id as printed text, without NUL or other control characters",
+    # the items table is the platform's, not a source's
+    "table_lacks_feature": "the platform must deliver items.parquet with every feature the configuration names",
+    "feature_not_a_number": "the platform must give every feature a finite number",
+    "feature_beyond_limit": "the platform must keep feature values within the numeric limit the message names",
+    "features_all_constant": "the platform must deliver features that vary across the night's items",
+    "rule_value_blank": "the platform must fill every rule__* cell",
     # K classes (configuration key classes): these codes are the rules' own names
     "unknown_class_name": "write each label as one of the configured class names, spelt exactly, or as its class index",
     "class_index_out_of_range": "write class indices 0..K-1 of the configured classes",
