@@ -4,18 +4,16 @@
 analysis, the route and the draw (performed by the decide step, not here);
 :func:`decision_json` is the only place that turns it into the contract's JSON form and
 :func:`decision_from_json` the only one that reads a published night back (its inverse);
-:func:`sources_table` / :func:`aggregate_table` give the Parquet outputs. Rules and earlier
+the Parquet outputs are in :mod:`truthsieve.pipeline.output_tables`. Rules and earlier
 draws travel in their JSON form (``RuleClass.describe``), already the contract's shape.
 """
 
 from __future__ import annotations
 
-import json
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, fields, is_dataclass
 
 import numpy as np
-import pyarrow as pa
 
 from truthsieve import __version__
 from truthsieve.core.draw import Draw, draw_message
@@ -223,12 +221,21 @@ def build_decision(
     )
 
 
+_FIELD_NAMES: dict[type, tuple[str, ...]] = {}  # per dataclass: its field names, looked up once
+_SCALARS = (str, int, float, bool, type(None))
+
+
 def _plain(value):
     """JSON-ready data: dataclasses as objects in field order, tuples as lists."""
+    if type(value) in _SCALARS:  # most values: one type check (1,000 sources: 165,000 of them)
+        return value
     if isinstance(value, (Reason, ErrorRecord, Note)):
         return value.as_dict()
-    if is_dataclass(value):
-        return {f.name: _plain(getattr(value, f.name)) for f in fields(value)}
+    names = _FIELD_NAMES.get(type(value))
+    if names is None and is_dataclass(value) and not isinstance(value, type):
+        names = _FIELD_NAMES[type(value)] = tuple(f.name for f in fields(value))
+    if names is not None:
+        return {name: _plain(getattr(value, name)) for name in names}
     if isinstance(value, (list, tuple)):
         return [_plain(v) for v in value]
     if isinstance(value, dict):
@@ -275,26 +282,3 @@ def decision_from_json(data: Mapping) -> Decision:
         absent=tuple(_record(Absent, a) for a in data["absent"]), earlier_draws=tuple(data["earlier_draws"]),
         classes=None if classes is None else tuple(classes),
     )
-
-
-# not a column where they stand: the interval is its two ends, the rules JSON text after the counts
-_NOT_COLUMNS = ("disagreement_interval", "own_best_rule", "others_rule", "gain_target_rule")
-
-
-def sources_table(analysis: BatchAnalysis, decision: Decision) -> pa.Table:
-    """``sources.parquet``: one row per source, the decision's numbers plus raw counts."""
-    rows = []
-    for report, source in zip(analysis.sources, decision.sources):
-        row = {f.name: getattr(source, f.name) for f in fields(SourceEntry) if f.name not in _NOT_COLUMNS}
-        rows.append({
-            **row, "flags": list(source.flags), "positives": report.positives, "disagreements": report.disagreements,
-            "disagreement_low": report.disagreement_low, "disagreement_high": report.disagreement_high,
-            **{name: json.dumps(getattr(source, name), sort_keys=True) for name in ("own_best_rule", "gain_target_rule", "others_rule")},
-            "batch_date": decision.batch_date,
-        })
-    return pa.Table.from_pylist(rows)
-
-
-def aggregate_table(analysis: BatchAnalysis, rule: int) -> pa.Table:
-    labels = analysis.rule_class.predict(rule).astype(np.int8)
-    return pa.table({"item_id": pa.array(analysis.matrix.item_ids.tolist(), pa.string()), "label": pa.array(labels, pa.int8())})

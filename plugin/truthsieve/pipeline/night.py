@@ -16,7 +16,7 @@ from __future__ import annotations
 import hashlib
 import json
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from functools import cached_property
 from pathlib import Path
 
@@ -189,6 +189,7 @@ class Published:
 
     typed: Decision
     output: object
+    as_json: dict | None = field(default=None, repr=False, compare=False)  # decision_json(typed) when already made
 
     @property
     def batch_date(self) -> str:
@@ -201,7 +202,7 @@ class Published:
     @cached_property
     def decision(self) -> dict:
         """The decision in its ``decision.json`` form."""
-        return decision_json(self.typed)
+        return self.as_json if self.as_json is not None else decision_json(self.typed)
 
     def summary(self) -> dict:
         """What XCom carries: route, flagged sources, where."""
@@ -239,7 +240,7 @@ def publish_night(
         store.record_publication(batch_date, files["decision.json"])
     if index:
         store.write_index()
-    return Published(decided.decision, output)
+    return Published(decided.decision, output, decided.as_json)
 
 
 def alerts_of(store, batch_date: str) -> list[dict]:

@@ -37,24 +37,28 @@ def _flags_cell(decision: Decision) -> str:
 
 def totals(decisions: Sequence[Decision]) -> list[dict]:
     """Per source: nights with valid labels, flagged, quarantined, absent, and nights a
-    blocking reason named it (it sent the night to review)."""
-    names = sorted(
-        {s.source_id for d in decisions for s in d.sources}
-        | {q.source_id for d in decisions for q in d.quarantined if q.source_id}
-        | {a.source_id for d in decisions for a in d.absent}
-    )
-    out = []
-    for name in names:
-        row = {"source_id": name, "valid": 0, "flagged": 0, "quarantined": 0, "absent": 0, "review": 0}
-        for d in decisions:
-            mine = next((s for s in d.sources if s.source_id == name), None)
-            row["valid"] += mine is not None
-            row["flagged"] += bool(mine and mine.flags)
-            row["quarantined"] += any(q.source_id == name for q in d.quarantined)
-            row["absent"] += any(a.source_id == name and a.why == "no_folder" for a in d.absent)
-            row["review"] += any(r.blocking and r.source_id == name for r in d.reasons)
-        out.append(row)
-    return out
+    blocking reason named it (it sent the night to review). One pass over each night."""
+    rows: dict[str, dict] = {}
+    named: list[set[str]] = []  # per night, the sources a blocking reason names
+    for d in decisions:
+        for name in [s.source_id for s in d.sources] + [q.source_id for q in d.quarantined if q.source_id] + [a.source_id for a in d.absent]:
+            rows.setdefault(name, {"source_id": name, "valid": 0, "flagged": 0, "quarantined": 0, "absent": 0, "review": 0})
+    for d in decisions:
+        seen = set()
+        for s in d.sources:
+            if s.source_id not in seen:  # the first entry of a source counts, as a lookup would
+                seen.add(s.source_id)
+                rows[s.source_id]["valid"] += 1
+                rows[s.source_id]["flagged"] += bool(s.flags)
+        for name in {q.source_id for q in d.quarantined if q.source_id}:
+            rows[name]["quarantined"] += 1
+        for name in {a.source_id for a in d.absent if a.why == "no_folder"}:
+            rows[name]["absent"] += 1
+        named.append({r.source_id for r in d.reasons if r.blocking and r.source_id in rows})
+    for blocked in named:
+        for name in blocked:
+            rows[name]["review"] += 1
+    return [rows[name] for name in sorted(rows)]
 
 
 def render_index(decisions: Sequence[Decision], ledger_entries: Sequence[Mapping] = (), unreadable: Mapping[str, str] = {}) -> str:

@@ -15,10 +15,11 @@ from truthsieve.core.incentives import SourceIncentive
 from truthsieve.pipeline.alerts import compose_alerts
 from truthsieve.pipeline.analysis import BatchAnalysis, analyse_batch
 from truthsieve.pipeline.config import Config
-from truthsieve.pipeline.decision import Decision, aggregate_table, build_decision, decision_json, sources_table
+from truthsieve.pipeline.decision import Decision, build_decision, decision_json
 from truthsieve.pipeline.night import DEMO_KEY, Published, draw_key_from_environment, item_index, screen_night
 from truthsieve.pipeline.night import validate_items_at as validate_items
 from truthsieve.pipeline.night import validate_source_at
+from truthsieve.pipeline.output_tables import aggregate_table, sources_table
 from truthsieve.pipeline.outputs import dumps_decision, parquet_bytes
 from truthsieve.pipeline.records import Intake
 from truthsieve.pipeline.report import render_report
@@ -49,6 +50,7 @@ class Decided:
     decision: Decision
     files: dict[str, bytes]
     analysis: BatchAnalysis | None
+    as_json: dict  # decision_json(decision), made once
 
 
 def decide_night(
@@ -96,13 +98,13 @@ def decide_night(
     if intake.errors:
         files["quarantine/errors.json"] = dumps_decision({"batch_date": intake.batch_date, "errors": as_json["errors"]})
     files["report.html"] = render_report(decision, analysis, in_force_before, recent, config.routing).encode()
-    return Decided(decision, files, analysis)
+    return Decided(decision, files, analysis, as_json)
 
 
 def decide(intake: Intake, config: Config, history: Mapping, *args, **kwargs) -> tuple[dict, dict[str, bytes], BatchAnalysis | None]:
     """:func:`decide_night` with the decision as its JSON form: (decision, files, analysis)."""
     decided = decide_night(intake, config, history, *args, **kwargs)
-    return decision_json(decided.decision), decided.files, decided.analysis
+    return decided.as_json, decided.files, decided.analysis
 
 
 def screen(
