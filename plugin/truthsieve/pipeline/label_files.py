@@ -26,7 +26,9 @@ def is_string(kind: pa.DataType) -> bool:
 
 def id_errors(relative_path: str, column: pa.ChunkedArray) -> list[ErrorRecord]:
     """Null ids and ids holding a NUL or other control character (``X`` and ``X\\x00`` look alike)."""
-    control = pc.fill_null(pc.match_substring_regex(column, CONTROL_CHARACTERS), False)
+    # Kleene "and" with validity turns the nulls of null ids into False without a Python
+    # scalar (fill_null(..., False) builds one, and pyarrow imports pandas to build it).
+    control = pc.and_kleene(pc.match_substring_regex(column, CONTROL_CHARACTERS), column.is_valid())
     return row_errors(relative_path, np.flatnonzero(column.is_null().to_numpy(zero_copy_only=False)), "item_id", "null_item_id", "item_id is null") + row_errors(
         relative_path, np.flatnonzero(control.to_numpy(zero_copy_only=False)), "item_id", "control_character_in_id",
         "item_id holds a NUL or other control character",
