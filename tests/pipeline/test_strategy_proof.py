@@ -14,6 +14,7 @@ import hashlib
 from fractions import Fraction
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from core_support import FEATURES
@@ -36,7 +37,11 @@ def intake_for(instance: Instance, date: str = DATE) -> Intake:
         table["label"] = table["label"].astype(np.int8)
         digest = hashlib.sha256(table.to_csv().encode()).hexdigest()
         path = f"batch_date={date}/source_id={source}/labels.parquet"
-        intake.sources.append(FileCheck(source, table, [InputFile(path, digest, len(table), source, True)]))
+        # As validation holds a source: each label's row in the items table, and its class.
+        codes = pd.Index(items["item_id"]).get_indexer(table["item_id"])
+        check = FileCheck(source, inputs=[InputFile(path, digest, len(table), source, True)])
+        check.labels, check.item_codes = table["label"].to_numpy(), codes
+        intake.sources.append(check)
     return intake
 
 

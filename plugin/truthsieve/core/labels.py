@@ -1,9 +1,11 @@
-"""Turn the long label table into the arrays the core computes on.
+"""Turn each source's labels into the arrays the core computes on.
 
-Labels travel as a long table (``item_id``, ``source_id``, ``label``) everywhere
-outside the core; :func:`build_label_matrix` is the one place that turns them into
-dense arrays. Items and sources are sorted by id, so the result does not depend on
-the order of rows in any input.
+Validation hands over each source's labels as arrays: item codes (positions in the
+items table, from one hash join per file) and class indices (:class:`SourceCodes`);
+:func:`build_label_matrix` is the one place that turns them into dense arrays, without
+a string per label. It also takes the long table (``item_id``, ``source_id``,
+``label``) that tests and hand-made nights use. Items and sources are sorted by id, so
+the result does not depend on the order of rows in any input.
 
 Definitions (see the contract): source ``i`` labelled the items ``S_i`` with labels
 ``y_ij``; item ``j`` has weight ``u_j >= 0``; the private risk of a rule ``c`` is
@@ -23,15 +25,35 @@ from __future__ import annotations
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from functools import cached_property
-from typing import Any
+from typing import TYPE_CHECKING, Any, NamedTuple, Union
 
 import numpy as np
-import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
 from truthsieve.core.statistics import FloatArray, SourceLabels, private_costs, source_statistics, sum_statistics
-from truthsieve.exceptions import ClassIndexError, NoItemsError, NoSourcesError, UnknownReferenceError, WeightError
+from truthsieve.exceptions import ClassIndexError, InputError, NoItemsError, NoSourcesError, UnknownReferenceError, WeightError
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+
+class SourceCodes(NamedTuple):
+    """One source's labels as arrays.
+
+    :param source_id: the source's id.
+    :param item_codes: each label's item as its row position in the items table (as given,
+        not sorted).
+    :param labels: each label's class index, aligned with ``item_codes``.
+    """
+
+    source_id: str
+    item_codes: Any
+    labels: Any
+
+
+#: what :func:`build_label_matrix` takes: every source's codes, or the long label table
+Labels = Union[Sequence[SourceCodes], "pd.DataFrame"]
 
 
 @dataclass(frozen=True)
@@ -144,12 +166,17 @@ def normalised_weights(source_weights: Mapping[str, float], present: Sequence[st
     return result
 
 
-def sorted_items(items: pd.DataFrame) -> tuple[np.ndarray, FloatArray]:
+def sorted_items(items: "pd.DataFrame") -> tuple[np.ndarray, FloatArray]:
     """Item ids sorted (the code order of every array in the core) and their weights ``u_j``
     (1 where the table has no ``item_weight``).
 
     :raises WeightError: a weight that is not finite or is negative.
     """
+    return _sorted_items(items)[:2]
+
+
+def _sorted_items(items: "pd.DataFrame") -> tuple[np.ndarray, FloatArray, np.ndarray]:
+    """(sorted ids, their weights, the stable permutation that sorts the table's rows)."""
     raw_ids = as_ids(items["item_id"])
     order = np.argsort(raw_ids, kind="stable")
     if "item_weight" in items.columns:
@@ -158,65 +185,44 @@ def sorted_items(items: pd.DataFrame) -> tuple[np.ndarray, FloatArray]:
         weights = np.ones(len(raw_ids))
     if not np.isfinite(weights).all() or (weights < 0).any():
         raise WeightError("item weights must be finite and non-negative")
-    return raw_ids[order], weights
+    return raw_ids[order], weights, order
 
 
 def build_label_matrix(
-    labels: pd.DataFrame,
-    items: pd.DataFrame,
+    labels: Labels,
+    items: "pd.DataFrame",
     source_weights: Mapping[str, float],
     n_classes: int = 2,
 ) -> LabelMatrix:
-    """Build a :class:`LabelMatrix` from the long label table.
+    """Build a :class:`LabelMatrix` from every source's labels.
 
-    :param labels: columns ``item_id``, ``source_id``, ``label`` (class index
-        ``0 .. n_classes - 1``, or bool when ``n_classes`` is 2); one row per
-        (item, source); a source need not label every item.
+    :param labels: one :class:`SourceCodes` per source (item codes index the rows of
+        ``items``), or the long table with columns ``item_id``, ``source_id``, ``label``;
+        labels are class indices ``0 .. n_classes - 1`` (or bool when ``n_classes`` is 2);
+        one label per (item, source); a source need not label every item.
     :param items: column ``item_id`` (unique) and optionally ``item_weight``.
     :param source_weights: registry weight ``w_i > 0`` of every source present.
     :param n_classes: ``K``, the number of classes.
     :raises NoSourcesError, NoItemsError, WeightError, UnknownReferenceError,
         ClassIndexError: on impossible inputs; nothing is guessed.
 
-    >>> import pandas as pd
-    >>> m = build_label_matrix(
-    ...     pd.DataFrame({"item_id": ["a", "b", "a"], "source_id": ["s", "s", "t"], "label": [1, 0, 1]}),
-    ...     pd.DataFrame({"item_id": ["a", "b"]}), {"s": 1.0, "t": 3.0})
-    >>> m.source_weights.tolist(), m.labelled.sum(axis=1).tolist()
-    ([0.25, 0.75], [2, 1])
+    >>> import numpy as np, pandas as pd
+    >>> items = pd.DataFrame({"item_id": ["b", "a"]})
+    >>> m = build_label_matrix([SourceCodes("t", np.array([1]), np.array([1])),
+    ...                         SourceCodes("s", np.array([1, 0]), np.array([1, 0]))], items, {"s": 1.0, "t": 3.0})
+    >>> m.source_ids, m.labels.tolist(), m.labelled.sum(axis=1).tolist(), m.source_weights.tolist()
+    (('s', 't'), [[1, 0], [1, 0]], [2, 1], [0.25, 0.75])
+    >>> long = pd.DataFrame({"item_id": ["a", "b", "a"], "source_id": ["s", "s", "t"], "label": [1, 0, 1]})
+    >>> build_label_matrix(long, items, {"s": 1.0, "t": 3.0}).labels.tolist()
+    [[1, 0], [1, 0]]
     """
     if len(items) == 0:
         raise NoItemsError("the items table has no rows")
-    item_ids, item_weights = sorted_items(items)
-
-    # Ids stay in Arrow (no Python string per label): one hash join for items, one
-    # dictionary encoding for sources.
-    encoded = pc.dictionary_encode(id_array(labels["source_id"]))
-    source_names = encoded.dictionary.to_pylist()
-    present = sorted(str(s) for s in source_names)
-    if not present:
-        raise NoSourcesError("no source labelled any item")
-    weights = normalised_weights(source_weights, present)
-
-    label_items = id_array(labels["item_id"])
-    found = pc.index_in(label_items, value_set=pa.array(item_ids, pa.string()))
-    if found.null_count:
-        unknown = label_items.filter(found.is_null())[0].as_py()
-        raise UnknownReferenceError(f"label on unknown item {unknown!r}")
-    columns = found.to_numpy(zero_copy_only=False)
-    rank = np.searchsorted(np.array(present), np.array(source_names, dtype=str))
-    rows = rank[encoded.indices.to_numpy(zero_copy_only=False)]
-
-    shape = (len(present), len(item_ids))
-    dense_labels = np.zeros(shape, dtype=np.int8)
-    labelled = np.zeros(shape, dtype=bool)
-    classes = labels["label"].to_numpy()  # no copy: 10M labels stay one int8 pass
-    if len(classes) and (classes.min() < 0 or classes.max() >= n_classes):
-        bad = int(np.flatnonzero((classes < 0) | (classes >= n_classes))[0])
-        raise ClassIndexError(f"label {classes[bad]} in row {bad} is not a class index 0..{n_classes - 1}")
-    dense_labels[rows, columns] = classes.astype(np.int8)
-    labelled[rows, columns] = True
-
+    item_ids, item_weights, order = _sorted_items(items)
+    if isinstance(labels, (list, tuple)):
+        present, weights, dense_labels, labelled = _dense_from_codes(labels, order, source_weights, n_classes)
+    else:
+        present, weights, dense_labels, labelled = _dense_from_long(labels, item_ids, source_weights, n_classes)
     matrix = LabelMatrix(
         item_ids=item_ids,
         source_ids=tuple(present),
@@ -230,6 +236,67 @@ def build_label_matrix(
     if empty:
         raise NoItemsError(f"sources labelled no item of positive weight: {', '.join(empty)}")
     return matrix
+
+
+def _check_classes(classes: np.ndarray, n_classes: int, where: str) -> None:
+    if len(classes) and (classes.min() < 0 or classes.max() >= n_classes):
+        bad = int(np.flatnonzero((classes < 0) | (classes >= n_classes))[0])
+        raise ClassIndexError(f"label {classes[bad]} in row {bad}{where} is not a class index 0..{n_classes - 1}")
+
+
+Dense = tuple[list[str], FloatArray, np.ndarray, np.ndarray]  # sources, weights, labels, labelled
+
+
+def _dense_from_codes(sources: Sequence[SourceCodes], order: np.ndarray, source_weights: Mapping[str, float], n_classes: int) -> Dense:
+    """Sources sorted by id; each source's codes moved to the sorted items' columns."""
+    present = sorted(str(s.source_id) for s in sources)
+    if not present:
+        raise NoSourcesError("no source labelled any item")
+    if len(set(present)) < len(present):
+        raise InputError("a source's labels are given twice")
+    weights = normalised_weights(source_weights, present)
+    column_of_row = np.empty(len(order), dtype=np.int64)
+    column_of_row[order] = np.arange(len(order))
+    shape = (len(present), len(order))
+    dense_labels, labelled = np.zeros(shape, dtype=np.int8), np.zeros(shape, dtype=bool)
+    row_of = {source_id: i for i, source_id in enumerate(present)}
+    for source in sources:
+        codes = np.asarray(source.item_codes, dtype=np.int64)
+        if len(codes) and (codes.min() < 0 or codes.max() >= len(order)):
+            raise UnknownReferenceError(f"label of source {source.source_id!r} on an item code outside the items table")
+        classes = np.asarray(source.labels)
+        _check_classes(classes, n_classes, f" of source {source.source_id!r}")
+        row, columns = row_of[str(source.source_id)], column_of_row[codes]
+        dense_labels[row, columns] = classes.astype(np.int8)
+        labelled[row, columns] = True
+    return present, weights, dense_labels, labelled
+
+
+def _dense_from_long(labels: "pd.DataFrame", item_ids: np.ndarray, source_weights: Mapping[str, float], n_classes: int) -> Dense:
+    """The long table's cells: one hash join for items, one dictionary encoding for sources."""
+    encoded = pc.dictionary_encode(id_array(labels["source_id"]))
+    source_names = encoded.dictionary.to_pylist()
+    present = sorted(str(s) for s in source_names)
+    if not present:
+        raise NoSourcesError("no source labelled any item")
+    weights = normalised_weights(source_weights, present)
+    label_items = id_array(labels["item_id"])
+    found = pc.index_in(label_items, value_set=pa.array(item_ids, pa.string()))
+    if found.null_count:
+        unknown = label_items.filter(found.is_null())[0].as_py()
+        raise UnknownReferenceError(f"label on unknown item {unknown!r}")
+    columns = found.to_numpy(zero_copy_only=False)
+    rank = np.searchsorted(np.array(present), np.array(source_names, dtype=str))
+    rows = rank[encoded.indices.to_numpy(zero_copy_only=False)]
+
+    shape = (len(present), len(item_ids))
+    dense_labels = np.zeros(shape, dtype=np.int8)
+    labelled = np.zeros(shape, dtype=bool)
+    classes = labels["label"].to_numpy()  # no copy: 10M labels stay one int8 pass
+    _check_classes(classes, n_classes, "")
+    dense_labels[rows, columns] = classes.astype(np.int8)
+    labelled[rows, columns] = True
+    return present, weights, dense_labels, labelled
 
 
 def id_array(values: Any) -> pa.Array:

@@ -31,15 +31,18 @@ from __future__ import annotations
 
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 
 from truthsieve.core.registry import Registry
 from truthsieve.core.rule_class import RULE_COLUMN_PREFIX, RuleClass, RuleForm, class_totals, first_minimum
 from truthsieve.core.statistics import FloatArray, IntArray
 from truthsieve.core.threshold_rules import ThresholdRules
 from truthsieve.exceptions import ClassIndexError, RuleClassError
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 __all__ = [
     "RULE_CLASSES",

@@ -15,15 +15,18 @@ first rule within the tolerance of the minimum is found cut by cut in the same o
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 import numpy.typing as npt
-import pandas as pd
 
 from truthsieve.core.labels import TIE_TOLERANCE
 from truthsieve.core.rule_class import RuleClass, RuleForm, class_totals
 from truthsieve.core.statistics import FloatArray, IntArray
 from truthsieve.exceptions import RuleClassError
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 
 @dataclass(frozen=True)

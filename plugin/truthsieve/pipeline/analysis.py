@@ -16,10 +16,9 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
-
 import pyarrow as pa
 import pyarrow.compute as pc
 
@@ -28,7 +27,7 @@ from truthsieve.core import statistics as core_statistics
 from truthsieve.core.agreement import batch_agreement
 from truthsieve.core.dawid_skene import DawidSkeneFit, dawid_skene
 from truthsieve.core.incentives import SourceIncentive, analyse_source, context_from_totals, incentive_context, source_incentive
-from truthsieve.core.labels import LabelMatrix, as_ids, build_label_matrix, id_array, normalised_weights, sorted_items
+from truthsieve.core.labels import Labels, LabelMatrix, as_ids, build_label_matrix, id_array, normalised_weights, sorted_items
 from truthsieve.core.mechanisms import ConsensusFit, MechanismResult, fit_consensus, run_mechanism
 from truthsieve.core.rules import RuleClass, build_rule_class
 from truthsieve.core.sampling import items_needed
@@ -36,6 +35,9 @@ from truthsieve.core.source_checks import SourceHistory, SourceReport, assess_so
 from truthsieve.core.statistics import FloatArray, SourceLabels
 from truthsieve.exceptions import ClassIndexError, UnknownReferenceError
 from truthsieve.pipeline.config import Config
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 
 @dataclass(frozen=True)
@@ -61,9 +63,13 @@ def class_count(config: Config, n_classes: int | None = None) -> int:
 
 
 def prepare(
-    labels: pd.DataFrame, items: pd.DataFrame, config: Config, *, n_classes: int | None = None
+    labels: Labels, items: "pd.DataFrame", config: Config, *, n_classes: int | None = None
 ) -> tuple[LabelMatrix, RuleClass, ConsensusFit]:
-    """The label matrix, the rule class and the consensus fit (labels are class indices)."""
+    """The label matrix, the rule class and the consensus fit (labels are class indices).
+
+    :param labels: every valid source's :class:`~truthsieve.core.labels.SourceCodes` (item
+        codes into ``items``' rows), or the long label table.
+    """
     k = class_count(config, n_classes)
     weights = {s.source_id: s.weight for s in config.sources}
     matrix = build_label_matrix(labels, items, weights, n_classes=k)
@@ -84,7 +90,7 @@ class NightItems:
         return len(self.item_ids)
 
 
-def night_items(items: pd.DataFrame, config: Config, *, n_classes: int | None = None) -> NightItems:
+def night_items(items: "pd.DataFrame", config: Config, *, n_classes: int | None = None) -> NightItems:
     """Item codes, weights and rule class, exactly as :func:`prepare` orders them."""
     item_ids, weights = sorted_items(items)
     k = class_count(config, n_classes)
@@ -99,7 +105,7 @@ def source_weights(config: Config, present: Sequence[str]) -> dict[str, float]:
     return dict(zip(ordered, (float(w) for w in normalised_weights(registry, ordered))))
 
 
-def source_statistics(labels: pd.DataFrame, source_id: str, night: NightItems, weight: float) -> SourceLabels:
+def source_statistics(labels: "pd.DataFrame", source_id: str, night: NightItems, weight: float) -> SourceLabels:
     """One source's sparse labels from its long rows (``item_id``, ``label`` as class index).
 
     :param weight: the source's normalised weight (:func:`source_weights`).
@@ -117,7 +123,7 @@ def source_statistics(labels: pd.DataFrame, source_id: str, night: NightItems, w
     return core_statistics.source_statistics(source_id, codes, classes, night.item_weights, weight)
 
 
-def item_ranks(items: pd.DataFrame) -> np.ndarray:
+def item_ranks(items: "pd.DataFrame") -> np.ndarray:
     """Each items-table row's item code (its position in :func:`night_items`' sorted order)."""
     order = np.argsort(as_ids(items["item_id"]), kind="stable")
     ranks = np.empty(len(order), dtype=np.int64)
@@ -169,8 +175,8 @@ def analyse_one_source(
 
 
 def analyse_batch(
-    labels: pd.DataFrame,
-    items: pd.DataFrame,
+    labels: Labels,
+    items: "pd.DataFrame",
     config: Config,
     history: Mapping[str, SourceHistory],
     incentives: Sequence[SourceIncentive] | None = None,
@@ -179,6 +185,7 @@ def analyse_batch(
 ) -> BatchAnalysis:
     """Every number of one batch.
 
+    :param labels: as :func:`prepare` takes them.
     :param incentives: per-source results computed elsewhere (e.g. in mapped Airflow
         tasks); computed here when None.
     :param n_classes: ``K`` (default: from ``config.classes``, else 2).

@@ -29,7 +29,6 @@ from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 import pyarrow as pa
 
 from truthsieve.core.labels import id_array
@@ -115,7 +114,7 @@ def validate_items(
     """
     inbox, features = Path(inbox), list(features)
     scan = layout.scan_batch(inbox, batch_date)
-    check = FileCheck(source_id=None, table=None, notes=list(scan.notes))
+    check = FileCheck(source_id=None, notes=list(scan.notes))
     path = batch_folder(inbox, batch_date) / ITEMS_FILE
     if scan.items is None or not (scan.items.is_file() or not inside(scan.items, inbox)):
         check.errors.append(ErrorRecord(relative(path, inbox), None, None, "missing_file", "the batch has no items table"))
@@ -140,7 +139,7 @@ def validate_items(
         return check
 
     errors += id_errors(name, table.column("item_id"))
-    frame = table.to_pandas()
+    frame = table.to_pandas()  # imports pandas: the items table is still a DataFrame
     ids = frame["item_id"]
     errors += row_errors(
         name, np.flatnonzero(ids.duplicated(keep="first").to_numpy() & ids.notna().to_numpy()),
@@ -169,7 +168,7 @@ def validate_items(
         elif column.startswith(RULE_COLUMN_PREFIX):
             errors += row_errors(name, np.flatnonzero(frame[column].isna().to_numpy()), column, "null_rule_value", "rule value is null")
     if not errors:
-        check.table = frame
+        check.items_table = frame
         check.inputs[0] = replace(check.inputs[0], valid=True)
         check.contents.clear()
     return check
@@ -185,15 +184,16 @@ def validate_source(
     inbox: str | Path,
     folder: str | Path,
     registry: Mapping[str, object],
-    item_ids: pd.Index | pa.Array | None,
+    item_ids: pa.Array | None,
     item_weights: np.ndarray | None = None,
     classes: ClassAlphabet = BINARY,
 ) -> FileCheck:
     """Validate every Parquet file of one source folder.
 
-    A source is valid only when all its files are; its labels are returned as the long
-    table (``item_id``, ``source_id``, ``label``) with labels as class indices (int8; int16
-    when K > 127), decoded as ``classes`` allows (:mod:`truthsieve.pipeline.classes`). An item
+    A source is valid only when all its files are; its labels are returned as arrays
+    (:class:`~truthsieve.pipeline.records.FileCheck`: class indices, int8 or int16 when K >
+    127, decoded as ``classes`` allows (:mod:`truthsieve.pipeline.classes`), and each
+    label's position in the items table, or its item id when ``item_ids`` is None). An item
     labelled twice, in one file or across two, is a ``duplicate_label`` naming both places.
 
     :param item_ids: the items table's ids (any form :func:`~truthsieve.core.labels.id_array`
@@ -206,7 +206,7 @@ def validate_source(
     item_ids = None if item_ids is None else id_array(item_ids)
     source_id = display(folder.name.removeprefix(layout.SOURCE_PREFIX))
     folder_name = relative(folder, inbox)
-    check = FileCheck(source_id=source_id, table=None)
+    check = FileCheck(source_id=source_id)
     if not inside(folder, inbox):
         check.errors.append(ErrorRecord(folder_name, None, None, "link_outside_inbox", "the source folder is a link whose target lies outside the inbox; not read"))
         return check
@@ -230,7 +230,7 @@ def validate_source(
         check.errors.append(ErrorRecord(folder_name, None, None, "no_label_files", "the source folder holds no .parquet file"))
         return check
 
-    frames, places, positions = [], [], []
+    files, places = [], []
     for index, (name, data) in enumerate(contents):
         table, error = parse(name, data)
         if table is not None:
@@ -238,22 +238,23 @@ def validate_source(
         if error:
             check.errors.append(error)
             continue
-        frame, errors, found = validate_labels(name, table, item_ids, classes)
+        found, errors = validate_labels(name, table, item_ids, classes)
         check.errors += errors
-        if frame is not None:
-            frames.append(frame)
+        if found is not None:
+            files.append(found)
             places.append(name)
-            positions.append(found)
-    if frames:
-        check.errors += duplicate_errors(frames, places)
+    if files:
+        check.errors += duplicate_errors(files, places)
+    codes = np.concatenate([f.codes for f in files]) if files and item_ids is not None else None
     if not check.errors and item_weights is not None:
-        if not item_weights[np.concatenate(positions)].sum() > 0:
+        if not item_weights[codes].sum() > 0:
             check.errors.append(ErrorRecord(folder_name, None, "item_weight", "no_positive_weight", "every item this source labelled has item_weight 0"))
     if not check.errors:
-        labels = pd.concat(frames, ignore_index=True)
-        labels.insert(1, "source_id", source_id)
-        check.table = labels
-        check.item_codes = np.concatenate(positions) if item_ids is not None else None
+        check.labels = np.concatenate([f.labels for f in files])
+        if item_ids is None:
+            check.item_ids = pa.chunked_array([f.ids for f in files], pa.string()).combine_chunks()
+        else:
+            check.item_codes, check.id_table = codes, item_ids
         check.inputs = [replace(f, valid=True) for f in check.inputs]
         check.contents.clear()
     return check

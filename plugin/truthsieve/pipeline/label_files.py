@@ -6,8 +6,9 @@ Called by :func:`truthsieve.pipeline.ingest.validate_source`; every problem is a
 
 from __future__ import annotations
 
+from typing import NamedTuple
+
 import numpy as np
-import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
@@ -25,29 +26,45 @@ def is_string(kind: pa.DataType) -> bool:
 
 def id_errors(relative_path: str, column: pa.ChunkedArray) -> list[ErrorRecord]:
     """Null ids and ids holding a NUL or other control character (``X`` and ``X\\x00`` look alike)."""
-    control = pc.fill_null(pc.match_substring_regex(column, CONTROL_CHARACTERS), False)
+    # Kleene "and" with validity turns the nulls of null ids into False without a Python
+    # scalar (fill_null(..., False) builds one, and pyarrow imports pandas to build it).
+    control = pc.and_kleene(pc.match_substring_regex(column, CONTROL_CHARACTERS), column.is_valid())
     return row_errors(relative_path, np.flatnonzero(column.is_null().to_numpy(zero_copy_only=False)), "item_id", "null_item_id", "item_id is null") + row_errors(
         relative_path, np.flatnonzero(control.to_numpy(zero_copy_only=False)), "item_id", "control_character_in_id",
         "item_id holds a NUL or other control character",
     )
 
 
-def duplicate_errors(frames: list[pd.DataFrame], places: list[str]) -> list[ErrorRecord]:
+class FileLabels(NamedTuple):
+    """One valid label file as arrays: class indices, and each row's item as its position in
+    the items table (``codes``) or, without a valid items table, as its id (``ids``)."""
+
+    labels: np.ndarray
+    codes: np.ndarray | None
+    ids: pa.Array
+
+
+def item_keys(files: list[FileLabels]) -> np.ndarray:
+    """One integer per row of the files, equal exactly where the item is: the items table's
+    codes, or, without them, the ids' dictionary indices (one hash pass in Arrow)."""
+    if all(f.codes is not None for f in files):
+        return np.concatenate([f.codes for f in files]).astype(np.int64, copy=False)
+    every = pa.chunked_array([f.ids for f in files], pa.string()).combine_chunks()
+    return pc.dictionary_encode(every).indices.to_numpy(zero_copy_only=False).astype(np.int64)
+
+
+def duplicate_errors(files: list[FileLabels], places: list[str]) -> list[ErrorRecord]:
     """``duplicate_label`` for every later occurrence of an item, naming the first one's file and row."""
-    every = pa.chunked_array([id_array(f["item_id"]) for f in frames], pa.string())
-    if pc.count_distinct(every).as_py() == len(every):
-        return []  # the common case, decided in Arrow without a Python string per row
-    ids = np.concatenate([f["item_id"].to_numpy(dtype=object) for f in frames])
-    codes, _ = pd.factorize(ids)
-    _, first_of_code = np.unique(codes, return_index=True)
-    first = first_of_code[codes]
-    repeated = np.flatnonzero(first != np.arange(len(ids)))
-    if not len(repeated):
-        return []
-    starts = np.cumsum([0] + [len(f) for f in frames])
-    file_of = np.searchsorted(starts, np.arange(len(ids)), side="right") - 1
+    keys = item_keys(files)
+    if not len(keys) or np.bincount(keys).max() <= 1:
+        return []  # the common case: one counting pass over the integer keys
+    _, first_of_key, inverse = np.unique(keys, return_index=True, return_inverse=True)
+    first = first_of_key[inverse.reshape(-1)]
+    repeated = np.flatnonzero(first != np.arange(len(keys)))
+    starts = np.cumsum([0] + [len(f.labels) for f in files])
+    file_of = np.searchsorted(starts, np.arange(len(keys)), side="right") - 1
     errors = []
-    for k in range(len(frames)):
+    for k in range(len(files)):
         rows = repeated[file_of[repeated] == k]
         for position in rows[:MAX_ROWS_PER_RULE]:
             earlier = first[position]
@@ -63,8 +80,11 @@ def duplicate_errors(frames: list[pd.DataFrame], places: list[str]) -> list[Erro
 
 def validate_labels(
     relative_path: str, table: pa.Table, item_ids: pa.Array | None, classes: ClassAlphabet = BINARY
-) -> tuple[pd.DataFrame | None, list[ErrorRecord], np.ndarray | None]:
-    """(labels frame, errors, each row's position in ``item_ids``): one hash join per file.
+) -> tuple[FileLabels | None, list[ErrorRecord]]:
+    """(the file's labels as arrays, errors): one hash join per file, no table built.
+
+    The labels are None when there are errors; their ``codes`` are each row's position in
+    ``item_ids`` (None when ``item_ids`` is None: the items table is invalid).
 
     Labels are decoded to class indices by :func:`~truthsieve.pipeline.classes.decode_labels`
     (indices, names or bool as ``classes`` allows); with the binary default the records are
@@ -84,20 +104,20 @@ def validate_labels(
         wrong = label_type_error(relative_path, schema.field("label").type, classes)
         errors += [wrong] if wrong else []
     if errors:
-        return None, errors, None
+        return None, errors
 
     errors += id_errors(relative_path, table.column("item_id"))
     # Ids stay in Arrow: joined by a hash join, never one Python string per row.
     ids = id_array(table.column("item_id"))
     labels, label_errors = decode_labels(relative_path, table.column("label"), classes)
     errors += label_errors
-    found = None
+    codes = None
     if item_ids is not None:
         joined = pc.index_in(ids, value_set=item_ids)
         unknown = pc.and_(ids.is_valid(), joined.is_null()).to_numpy(zero_copy_only=False)
         errors += row_errors(relative_path, np.flatnonzero(unknown), "item_id", "unknown_item", "item_id is not in the items table")
+        if not errors:
+            codes = joined.to_numpy(zero_copy_only=False)
     if errors:
-        return None, errors, None
-    if item_ids is not None:
-        found = joined.to_numpy(zero_copy_only=False)
-    return pa.table({"item_id": ids, "label": labels}).to_pandas(), [], found
+        return None, errors
+    return FileLabels(labels, codes, ids), []

@@ -139,7 +139,7 @@ def fit_consensus(store, batch_date: str, config: Config, intake: Intake | None 
         items = intake.items.table if intake.items.valid else None
         held = {s.source_id: s for s in intake.valid_sources}
         present = sorted(held)
-        load = lambda source_id: (held[source_id].item_codes, held[source_id].table["label"].to_numpy(dtype=np.int8))  # noqa: E731
+        load = lambda source_id: (held[source_id].item_codes, held[source_id].labels)  # noqa: E731
     else:
         items_check = work_files.read_items(store, batch_date)
         items = items_check.table if items_check.valid else None

@@ -8,13 +8,17 @@ from __future__ import annotations
 
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
+from truthsieve.core.labels import SourceCodes
 from truthsieve.pipeline.layout import Note, read_inside, relative, sha256
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 # Enough rows per (file, rule) to find the pattern; the rest are counted in one record.
 MAX_ROWS_PER_RULE = 20
@@ -76,25 +80,79 @@ class InputFile:
     valid: bool
 
 
+def number_array(values: np.ndarray) -> pa.Array:
+    """A 1-D NumPy array of integers or floats as an Arrow array, without a copy.
+
+    ``pa.array`` would first ask pandas whether the values are a pandas object, and so
+    import pandas (about a second) on a night that needs none.
+    """
+    values = np.ascontiguousarray(values)
+    if values.dtype.kind not in "iuf" or values.ndim != 1:
+        raise TypeError(f"not a 1-D array of numbers: {values.dtype}, {values.ndim} dimensions")
+    return pa.Array.from_buffers(pa.from_numpy_dtype(values.dtype), len(values), [None, pa.py_buffer(values)])
+
+
 @dataclass
 class FileCheck:
     """The outcome of validating one group of files (the items table, or one source).
+
+    The items check holds the validated items table (``items_table``). A valid source
+    holds its labels as arrays, never as a table: ``labels`` (class indices, int8; int16
+    when K > 127) and ``item_codes`` (each label's position in the items table, from the
+    validation's hash join), with ``id_table`` the items table's ids that the codes index
+    (one array shared by every source). When the items table is invalid there are no
+    codes: ``item_ids`` then holds each label's own item id. The long table (``item_id``,
+    ``source_id``, ``label``) is built only on request (:attr:`table`).
 
     ``contents`` keeps the bytes read of an invalid group, for its quarantine copies.
     """
 
     source_id: str | None
-    table: pd.DataFrame | None
+    items_table: Any = None  # the validated items table (a DataFrame); the items check only
     inputs: list[InputFile] = field(default_factory=list)
     errors: list[ErrorRecord] = field(default_factory=list)
     notes: list[Note] = field(default_factory=list)
     contents: dict[str, bytes] = field(default_factory=dict, repr=False)
-    #: a valid source's labelled items as positions in the items table (None otherwise)
+    #: a valid source's class indices, one per label (None otherwise)
+    labels: np.ndarray | None = field(default=None, repr=False)
+    #: a valid source's labelled items as positions in the items table (None without a valid items table)
     item_codes: np.ndarray | None = field(default=None, repr=False)
+    #: the items table's ids, which ``item_codes`` index
+    id_table: pa.Array | None = field(default=None, repr=False)
+    #: each label's item id, held only when there are no codes (the items table is invalid)
+    item_ids: pa.Array | None = field(default=None, repr=False)
 
     @property
     def valid(self) -> bool:
-        return self.table is not None and not self.errors
+        return (self.items_table is not None or self.labels is not None) and not self.errors
+
+    @property
+    def codes(self) -> SourceCodes:
+        """A valid source's (source id, item codes, labels)."""
+        if self.labels is None or self.item_codes is None:
+            raise ValueError(f"source {self.source_id!r} holds no item codes")
+        return SourceCodes(self.source_id, self.item_codes, self.labels)
+
+    def label_item_ids(self) -> pa.Array | None:
+        """Each label's item id (decoded from the codes when there are codes)."""
+        if self.labels is None:
+            return None
+        if self.item_codes is None:
+            return self.item_ids
+        return self.id_table.take(number_array(self.item_codes))
+
+    @property
+    def table(self) -> "pd.DataFrame | None":
+        """The items table, or a valid source's long table (``item_id``, ``source_id``,
+        ``label``), built on each request and only then (tests, legacy callers): the
+        screening path reads the arrays."""
+        if self.labels is None:
+            return self.items_table
+        import pandas as pd
+
+        return pd.DataFrame({
+            "item_id": self.label_item_ids().to_pandas(), "source_id": self.source_id, "label": np.asarray(self.labels),
+        })
 
     def summary(self) -> dict:
         """Everything but the table and bytes, as JSON-ready data (the table travels as Parquet)."""
@@ -106,10 +164,10 @@ class FileCheck:
         }
 
     @classmethod
-    def from_summary(cls, summary: dict, table: pd.DataFrame | None) -> "FileCheck":
+    def from_summary(cls, summary: dict, items_table: Any = None) -> "FileCheck":
         return cls(
             source_id=summary["source_id"],
-            table=table,
+            items_table=items_table,
             inputs=[InputFile(**f) for f in summary["inputs"]],
             errors=[ErrorRecord(**{k: e[k] for k in ERROR_FIELDS}) for e in summary["errors"]],
             notes=[Note(**n) for n in summary.get("notes", [])],
@@ -146,7 +204,15 @@ class Intake:
         return [s for s in self.sources if not s.valid]
 
     @property
-    def labels(self) -> pd.DataFrame:
+    def label_codes(self) -> list[SourceCodes]:
+        """Every valid source's item codes and labels, in intake order (needs a valid items table)."""
+        return [s.codes for s in self.valid_sources]
+
+    @property
+    def labels(self) -> "pd.DataFrame":
+        """The long label table of every valid source (built on request; tests, legacy callers)."""
+        import pandas as pd
+
         frames = [s.table for s in self.valid_sources]
         return pd.concat(frames, ignore_index=True) if frames else pd.DataFrame(columns=["item_id", "source_id", "label"])
 

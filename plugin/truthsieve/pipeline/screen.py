@@ -76,7 +76,7 @@ def decide_night(
     revision, earlier = draw_revision(previous, intake, config.digest(), key_fingerprint(key))
     analysis = None
     if intake.items.valid and intake.valid_sources:
-        analysis = analyse_batch(intake.labels, intake.items.table, config, history, incentives)
+        analysis = analyse_batch(intake.label_codes, intake.items.table, config, history, incentives)
     route, reasons = route_batch(
         analysis, [s.source_id for s in intake.quarantined], len(intake.valid_sources), config, demo_key, intake.items.valid, revision
     )

@@ -4,7 +4,7 @@ Files under the store's work folder (see :meth:`BatchStore.work`)::
 
     items.parquet, items.json           the validated items table; its check's summary (written last)
     sources/<folder>.parquet            one valid source's labels: ``item`` (int32 position in the
-                                        items table), ``label`` (int8); ``item_id`` strings instead
+                                        items table), ``label`` (int8; int16 when K > 127); ``item_id`` strings instead
                                         when the items table is invalid
     sources/<folder>.json               that source's check summary (inputs with sha256, errors, notes)
     quarantine/<folder>.parquet         an invalid check's input bytes (``path``, ``data``, binary),
@@ -37,7 +37,7 @@ from truthsieve.core.labels import id_array
 from truthsieve.exceptions import InputError
 from truthsieve.pipeline.layout import batch_name
 from truthsieve.pipeline.outputs import parquet_bytes
-from truthsieve.pipeline.records import FileCheck, Intake, quarantine_bytes
+from truthsieve.pipeline.records import FileCheck, Intake, number_array, quarantine_bytes
 
 ITEMS_TABLE, ITEMS_SUMMARY = "items.parquet", "items.json"
 ITEMS_QUARANTINE = "quarantine/items.parquet"
@@ -99,11 +99,11 @@ def read_items(store, batch_date: str) -> FileCheck:
 
 def write_source(store, batch_date: str, folder: str, check: FileCheck, quarantine: bytes | None) -> None:
     if check.valid:
-        labels = check.table["label"].to_numpy(dtype=np.int8)
+        labels = number_array(check.labels)  # int8; int16 when K > 127
         if check.item_codes is not None:
-            table = pa.table({"item": pa.array(check.item_codes.astype(np.int32)), "label": pa.array(labels)})
+            table = pa.table({"item": number_array(check.item_codes.astype(np.int32)), "label": labels})
         else:
-            table = pa.table({"item_id": id_array(check.table["item_id"]), "label": pa.array(labels)})
+            table = pa.table({"item_id": check.item_ids, "label": labels})
         store.write_work(batch_date, source_table(folder), parquet_bytes(table))
     if quarantine is not None:
         store.write_work(batch_date, source_quarantine(folder), quarantine)
@@ -111,23 +111,20 @@ def write_source(store, batch_date: str, folder: str, check: FileCheck, quaranti
 
 
 def read_source(store, batch_date: str, folder: str, item_ids: pa.Array | None) -> FileCheck:
-    """One source's check; its labels as the long table, item ids decoded from their codes."""
+    """One source's check; a valid one's labels as arrays (item codes into ``item_ids``, the
+    items table's ids, or each label's item id when the items table is invalid)."""
     summary = store.read_work(batch_date, source_summary(folder))
     if summary is None:
         raise StepNotRunError(f"{folder} was not validated in this run")
-    check = FileCheck.from_summary(json.loads(summary), None)
+    check = FileCheck.from_summary(json.loads(summary))
     data = store.read_work(batch_date, source_table(folder))
     if data is not None:
         table = _read_parquet(data)
+        check.labels = table.column("label").to_numpy()
         if "item" in table.column_names:
-            codes = table.column("item").to_numpy()
-            check.item_codes = codes
-            ids = item_ids.take(pa.array(codes))
+            check.item_codes, check.id_table = table.column("item").to_numpy(), item_ids
         else:
-            ids = table.column("item_id")
-        frame = pa.table({"item_id": ids, "label": table.column("label")}).to_pandas()
-        frame.insert(1, "source_id", check.source_id)
-        check.table = frame
+            check.item_ids = table.column("item_id").combine_chunks()
     return check
 
 
