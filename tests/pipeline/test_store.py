@@ -182,3 +182,22 @@ def test_the_index_names_a_night_whose_decision_cannot_be_read_and_lists_the_oth
     assert f"batch_date={DATE}/report.html" in page  # the readable night is listed
     assert f"batch_date={broken}/report.html" not in page
     assert f"Not listed: {broken}" in page and "KeyError" in page
+
+
+def test_held_work_given_as_a_function_is_made_only_when_read_or_spilled(tmp_path):
+    store = LocalStore(tmp_path / "in", tmp_path / "out", run="3.z")
+    made = []
+
+    def table(name):
+        return lambda: (made.append(name), name.encode())[1]
+
+    with store.work_in_memory():
+        store.write_work(DATE, "sources/a.parquet", table("a"))
+        store.write_work(DATE, "sources/b.parquet", table("b"))
+        assert made == []  # held: nothing serialised yet
+        assert store.read_work(DATE, "sources/a.parquet") == b"a" and store.read_work(DATE, "sources/a.parquet") == b"a"
+        assert made == ["a"]  # made once, on the first read
+        store.spill_work(DATE)
+        assert made == ["a", "b"] and (store.work(DATE) / "sources" / "b.parquet").read_bytes() == b"b"
+    store.write_work(DATE, "sources/c.parquet", table("c"))  # not held: made and written at once
+    assert made == ["a", "b", "c"] and (store.work(DATE) / "sources" / "c.parquet").read_bytes() == b"c"

@@ -63,17 +63,20 @@ def class_count(config: Config, n_classes: int | None = None) -> int:
 
 
 def prepare(
-    labels: Labels, items: "pd.DataFrame", config: Config, *, n_classes: int | None = None
+    labels: Labels, items: "pd.DataFrame", config: Config, *, n_classes: int | None = None, rule_class: RuleClass | None = None
 ) -> tuple[LabelMatrix, RuleClass, ConsensusFit]:
     """The label matrix, the rule class and the consensus fit (labels are class indices).
 
     :param labels: every valid source's :class:`~truthsieve.core.labels.SourceCodes` (item
         codes into ``items``' rows), or the long label table.
+    :param rule_class: the night's rule class when this process already built it
+        (:func:`night_items` orders items as the matrix does); built here when None.
     """
     k = class_count(config, n_classes)
     weights = {s.source_id: s.weight for s in config.sources}
     matrix = build_label_matrix(labels, items, weights, n_classes=k)
-    rule_class = build_rule_class(config.rule_class.kind, items, matrix.item_ids, config.rule_class.features, k)
+    if rule_class is None:
+        rule_class = build_rule_class(config.rule_class.kind, items, matrix.item_ids, config.rule_class.features, k)
     return matrix, rule_class, fit_consensus(matrix, rule_class)
 
 
@@ -182,15 +185,16 @@ def analyse_batch(
     incentives: Sequence[SourceIncentive] | None = None,
     *,
     n_classes: int | None = None,
+    rule_class: RuleClass | None = None,
 ) -> BatchAnalysis:
     """Every number of one batch.
 
-    :param labels: as :func:`prepare` takes them.
+    :param labels: as :func:`prepare` takes them; ``rule_class`` too.
     :param incentives: per-source results computed elsewhere (e.g. in mapped Airflow
         tasks); computed here when None.
     :param n_classes: ``K`` (default: from ``config.classes``, else 2).
     """
-    matrix, rule_class, consensus = prepare(labels, items, config, n_classes=n_classes)
+    matrix, rule_class, consensus = prepare(labels, items, config, n_classes=n_classes, rule_class=rule_class)
     if incentives is None:
         budget = config.analysis.incentive_budget
         # The shared global risks are what a lone mapped task computes too: same floats.

@@ -16,7 +16,7 @@ from __future__ import annotations
 import hashlib
 import json
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from functools import cached_property
 from pathlib import Path
 
@@ -217,11 +217,14 @@ def publish_night(
     intake: Intake | None = None,
     incentives: list[SourceIncentive] | None = None,
     index: bool = True,
+    fit: Fit | None = None,
 ) -> Published:
     """Decide the night and publish its outputs atomically; record it; rewrite the index.
 
     :param draw_key: (secret, is_demo_key) from :func:`draw_key_from_environment`.
     :param intake, incentives: read from the work area when None.
+    :param fit: the consensus step's :class:`Fit` when this process holds it (its rule
+        class is reused, not rebuilt).
     :param index: rewrite ``index.html`` (a backfill writes it once at the end).
     """
     from truthsieve.pipeline.screen import decide_night
@@ -233,7 +236,7 @@ def publish_night(
         decided = decide_night(
             intake, config, store.history(batch_date, config.routing.drift_window), incentives,
             in_force_before=store.in_force_before(batch_date), previous=store.published_decision(batch_date),
-            recent=store.recent(batch_date), draw_key=draw_key,
+            recent=store.recent(batch_date), draw_key=draw_key, rule_class=None if fit is None else fit.rule_class,
         )
         files = {**decided.files, **work_files.quarantine_copies(store, intake)}
         output = store.publish(batch_date, files)
@@ -291,6 +294,7 @@ def screen_night(
             intake = Intake(batch_date, items, [validate_source(store, batch_date, f, config, items_index) for f in folders])
             fit = fit_consensus(store, batch_date, config, intake)
             incentives = None if fit is None else analyse_sources(store, batch_date, config, fit, workers)
-            return publish_night(store, batch_date, config, draw_key, intake, incentives, index)
+            fit = None if fit is None else replace(fit, sources={})  # the sparse labels are done with: free them
+            return publish_night(store, batch_date, config, draw_key, intake, incentives, index, fit)
         finally:
             store.clear_work(batch_date)

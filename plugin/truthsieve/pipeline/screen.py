@@ -14,6 +14,7 @@ from truthsieve.core.draw import draw, key_fingerprint
 from truthsieve.core.incentives import SourceIncentive
 from truthsieve.pipeline.alerts import compose_alerts
 from truthsieve.pipeline.analysis import BatchAnalysis, analyse_batch
+from truthsieve.core.rules import RuleClass
 from truthsieve.pipeline.config import Config
 from truthsieve.pipeline.decision import Decision, build_decision, decision_json
 from truthsieve.pipeline.night import DEMO_KEY, Published, draw_key_from_environment, item_index, screen_night
@@ -63,8 +64,12 @@ def decide_night(
     recent: Sequence[Mapping] | None = None,
     *,
     draw_key: tuple[str, bool] = DEMO_KEY,
+    rule_class: RuleClass | None = None,
 ) -> Decided:
     """Analyse, route, draw and render one night (pure: no store, no environment).
+
+    :param rule_class: the night's rule class when the caller holds it (the consensus
+        step's, in one process); built from the items table when None.
 
     :param in_force_before: the rule in force before this night (see
         :func:`truthsieve.pipeline.verdicts.in_force_before`); only the report reads it.
@@ -76,7 +81,7 @@ def decide_night(
     revision, earlier = draw_revision(previous, intake, config.digest(), key_fingerprint(key))
     analysis = None
     if intake.items.valid and intake.valid_sources:
-        analysis = analyse_batch(intake.label_codes, intake.items.table, config, history, incentives)
+        analysis = analyse_batch(intake.label_codes, intake.items.table, config, history, incentives, rule_class=rule_class)
     route, reasons = route_batch(
         analysis, [s.source_id for s in intake.quarantined], len(intake.valid_sources), config, demo_key, intake.items.valid, revision
     )

@@ -17,12 +17,16 @@ import contextlib
 import json
 import shutil
 import tempfile
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from pathlib import Path
 
 from truthsieve.pipeline import layout
 from truthsieve.pipeline.layout import ITEMS_FILE, batch_dir, work_dir
 from truthsieve.pipeline.outputs import as_location, batch_location, published_dates, read_history
+
+
+#: one work file's content: its bytes, or a function that makes them
+Work = bytes | Callable[[], bytes]
 
 
 class BatchStore:
@@ -36,7 +40,7 @@ class BatchStore:
 
     def __init__(self, inbox, out, run: str | None = None) -> None:
         self.inbox, self.out, self.run = as_location(inbox), as_location(out), run
-        self._held: dict[tuple[str, str], bytes] | None = None
+        self._held: dict[tuple[str, str], Work] | None = None
 
     # ---- the inbox ----
     def batch_exists(self, batch_date: str) -> bool:
@@ -75,7 +79,8 @@ class BatchStore:
     def work_in_memory(self) -> Iterator[None]:
         """Hold the work area in memory inside the block: for one process that runs every
         step (the command line), where no other process reads it. :meth:`spill_work`
-        writes it out when other processes must (a pool of workers)."""
+        writes it out when other processes must (a pool of workers). Work given as a
+        function is held as that function and made only if it is read or spilled."""
         self._held = {}
         try:
             yield
@@ -89,18 +94,22 @@ class BatchStore:
             if date == batch_date:
                 self.write_work(date, name, data)
 
-    def write_work(self, batch_date: str, name: str, data: bytes) -> None:
+    def write_work(self, batch_date: str, name: str, data: Work) -> None:
+        """Write one work file: bytes, or a function making them (called at once unless held)."""
         if self._held is not None:
             self._held[(batch_date, name)] = data
         else:
-            self._write_work(batch_date, name, data)
+            self._write_work(batch_date, name, data if isinstance(data, bytes) else data())
 
     def _write_work(self, batch_date: str, name: str, data: bytes) -> None:
         self.write(self.work(batch_date) / name, data)
 
     def read_work(self, batch_date: str, name: str) -> bytes | None:
         if self._held is not None:
-            return self._held.get((batch_date, name))
+            data = self._held.get((batch_date, name))
+            if data is not None and not isinstance(data, bytes):
+                data = self._held[(batch_date, name)] = data()
+            return data
         path = self.work(batch_date) / name
         return path.read_bytes() if path.is_file() else None
 

@@ -16,9 +16,11 @@ Files under the store's work folder (see :meth:`BatchStore.work`)::
                                         each valid source (written last: the marker)
     incentives/<source_id>.json         one source's incentive analysis
 
-A summary is written after its table, so a present summary means a whole step. The
-sources' tables are their sufficient statistics: no step needs any other source's labels
-but ``fit_consensus`` (one at a time, summed into the totals) and ``publish_night``.
+A summary is written after its table, so a present summary means a whole step. Tables
+are given to the store as functions: a work area held in memory (one process) never
+serialises what no step reads back. The sources' tables are their sufficient
+statistics: no step needs any other source's labels but ``fit_consensus`` (one at a
+time, summed into the totals) and ``publish_night``.
 """
 
 from __future__ import annotations
@@ -83,7 +85,7 @@ def quarantine_blob(inbox: Path, check: FileCheck) -> bytes | None:
 
 def write_items(store, batch_date: str, check: FileCheck, quarantine: bytes | None) -> None:
     if check.valid:
-        store.write_work(batch_date, ITEMS_TABLE, parquet_bytes(pa.Table.from_pandas(check.table, preserve_index=False)))
+        store.write_work(batch_date, ITEMS_TABLE, lambda: parquet_bytes(pa.Table.from_pandas(check.table, preserve_index=False)))
     if quarantine is not None:
         store.write_work(batch_date, ITEMS_QUARANTINE, quarantine)
     store.write_work(batch_date, ITEMS_SUMMARY, _json(check.summary()))  # last: the marker
@@ -104,7 +106,7 @@ def write_source(store, batch_date: str, folder: str, check: FileCheck, quaranti
             table = pa.table({"item": number_array(check.item_codes.astype(np.int32)), "label": labels})
         else:
             table = pa.table({"item_id": check.item_ids, "label": labels})
-        store.write_work(batch_date, source_table(folder), parquet_bytes(table))
+        store.write_work(batch_date, source_table(folder), lambda: parquet_bytes(table))
     if quarantine is not None:
         store.write_work(batch_date, source_quarantine(folder), quarantine)
     store.write_work(batch_date, source_summary(folder), _json(check.summary()))
@@ -185,8 +187,8 @@ def _npy(array: np.ndarray) -> bytes:
 
 def write_night_fit(store, batch_date: str, totals: np.ndarray, global_risks: np.ndarray, fit: dict) -> None:
     """The consensus step's result: the summed costs, the rules' global risks, the fit."""
-    store.write_work(batch_date, NIGHT_TOTALS, _npy(totals))
-    store.write_work(batch_date, NIGHT_RISKS, _npy(global_risks))
+    store.write_work(batch_date, NIGHT_TOTALS, lambda: _npy(totals))
+    store.write_work(batch_date, NIGHT_RISKS, lambda: _npy(global_risks))
     store.write_work(batch_date, NIGHT_FIT, _json(fit))  # last: the marker
 
 
