@@ -22,14 +22,18 @@ def three_nights():
     second = fitted(
         batch_date="2026-11-02",
         sources=[source_entry("a", flags=["low_reliability"])],
-        quarantined=[Quarantined("b", ("batch_date=2026-11-02/source_id=b/labels.parquet",)), Quarantined(None, ("items.parquet",))],
+        quarantined=[
+            Quarantined("b", ("batch_date=2026-11-02/source_id=b/labels.parquet",)),
+            Quarantined("a2", ("batch_date=2026-11-02/source_id=a2/labels.parquet",)),
+            Quarantined(None, ("items.parquet",)),
+        ],
         absent=[Absent("b", "quarantined"), Absent("c", "no_folder")],
     )
     third = fitted(
         batch_date="2026-11-03",
         sources=[source_entry("a"), source_entry("b"), source_entry("c")],
         reasons=[Reason("too_few_sources", "no source named", True), Reason("x", "one", True, "c"), Reason("y", "two", True, "c")],
-        quarantined=[Quarantined("d", ("batch_date=2026-11-03/source_id=d/labels.parquet",))],
+        quarantined=[Quarantined("a2", ("batch_date=2026-11-03/source_id=a2/labels.parquet",))],
     )
     return [first, second, third]
 
@@ -39,12 +43,13 @@ def three_nights():
 #   b: valid on 11-01 and 11-03; flagged on 11-01 (pulls_fit); quarantined on 11-02, where absent says "quarantined",
 #      which is not counted as absent; named by a blocking reason on 11-01 -> review 1
 #   c: valid on 11-03 only; absent (no folder) on 11-01 and 11-02; two blocking reasons on 11-03 -> one night, review 1
-#   d: only quarantined, on 11-03. The items table's quarantine (no source id) and the reason naming no source add no row.
+#   a2: only quarantined, on 11-02 and 11-03 (first met last, listed second: rows go in source-id order).
+#   The items table's quarantine (no source id) and the reason naming no source add no row.
 HAND_TOTALS = [
     {"source_id": "a", "valid": 3, "flagged": 1, "quarantined": 0, "absent": 0, "review": 0},
+    {"source_id": "a2", "valid": 0, "flagged": 0, "quarantined": 2, "absent": 0, "review": 0},
     {"source_id": "b", "valid": 2, "flagged": 1, "quarantined": 1, "absent": 0, "review": 1},
     {"source_id": "c", "valid": 1, "flagged": 0, "quarantined": 0, "absent": 2, "review": 1},
-    {"source_id": "d", "valid": 0, "flagged": 0, "quarantined": 1, "absent": 0, "review": 0},
 ]
 
 
@@ -54,6 +59,11 @@ def test_totals_per_source_are_the_hand_counts():
 
 def test_totals_do_not_depend_on_the_order_of_the_nights():
     assert totals(list(reversed(three_nights()))) == HAND_TOTALS
+
+
+def test_a_source_listed_twice_in_a_night_counts_once_by_its_first_entry():
+    night = fitted(sources=[source_entry("a"), source_entry("a", flags=["pulls_fit"])])
+    assert totals([night]) == [{"source_id": "a", "valid": 1, "flagged": 0, "quarantined": 0, "absent": 0, "review": 0}]
 
 
 def test_no_night_no_totals():
