@@ -261,5 +261,5 @@ def test_an_inbox_reached_through_a_link_still_holds_its_own_files(inbox_and_sec
 
 
 def test_sha256_is_the_standard_digest():
-    # FIPS 180-2, appendix B.1: SHA-256("abc")
+    # Secure Hash Standard, FIPS PUB 180-2 (NIST, 2002), appendix B.1: SHA-256("abc") (digits from memory)
     assert layout.sha256(b"abc") == "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"

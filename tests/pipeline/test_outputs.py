@@ -9,6 +9,7 @@ ignores a read-only folder, so that limit is the failure used here.
 
 from __future__ import annotations
 
+import errno
 import json
 import os
 import signal
@@ -64,7 +65,7 @@ def test_a_write_failing_midway_leaves_the_previous_file_whole(tmp_path, how):
     path.write_bytes(previous)
     result = limited(f"outputs.write_atomic(Path(sys.argv[2]), b'n' * {BIG})", how, str(path))
     if how == "ignore":
-        assert (result.returncode, result.stdout.strip()) == (3, str(27)), result.stderr  # errno 27: EFBIG (Linux)
+        assert (result.returncode, result.stdout.strip()) == (3, str(errno.EFBIG)), result.stderr  # "File too large"
     else:
         assert result.returncode == -signal.SIGXFSZ, result.stderr  # killed by the kernel in mid-write
     assert path.read_bytes() == previous
@@ -116,7 +117,8 @@ def test_canonical_json_is_sorted_indented_utf8_and_refuses_nan():
 def test_parquet_bytes_are_a_parquet_file():
     table = pa.table({"item_id": ["lot-1", "lot-2"], "label": [1, 0]})
     data = parquet_bytes(table)
-    # Apache Parquet format specification, "File format": a file starts and ends with the magic "PAR1"
+    # Apache Parquet format specification (parquet-format, "File Format"): a file starts and ends with
+    # the 4-byte magic "PAR1" (from memory of the specification; pyarrow's reader below agrees)
     assert data[:4] == b"PAR1" and data[-4:] == b"PAR1"
     assert pq.read_table(pa.BufferReader(data)).equals(table)
 
