@@ -65,11 +65,15 @@ def write_atomic(path: Path, data: bytes, step: str = "temporary_written", durab
         readers still see a whole file or none, and nothing outlives a crash there.
     """
     temporary = path.with_name(f".{path.name}.{uuid.uuid4().hex}.tmp")
-    with open(temporary, "wb") as handle:
-        handle.write(data)
-        if durable:
-            handle.flush()
-            os.fsync(handle.fileno())
+    try:
+        with open(temporary, "wb") as handle:
+            handle.write(data)
+            if durable:
+                handle.flush()
+                os.fsync(handle.fileno())
+    except BaseException:  # a write that fails (disk full, file too large) leaves no partial temporary
+        temporary.unlink(missing_ok=True)
+        raise
     crash_point(step)
     os.replace(temporary, path)
 
