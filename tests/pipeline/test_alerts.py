@@ -16,7 +16,8 @@ from decision_support import source_entry
 from truthsieve.pipeline import demo
 from truthsieve.pipeline.alerts import compose_alerts
 from truthsieve.pipeline.evidence import FLAG_NAMES, flag_sentence
-from truthsieve.pipeline.screen import decide_night, ingest_batch
+from truthsieve.pipeline.screen import decide_night
+from night_support import ingest_batch
 
 # The default limits (pipeline/config.py RoutingPolicy), written as each sentence prints them:
 # max_disagreement 0.2 -> "20.0 %", min_balanced_accuracy 0.8 -> "80.0 %", min_kappa 0.5 -> "0.5",

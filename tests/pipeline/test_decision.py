@@ -22,7 +22,8 @@ from truthsieve.pipeline.decision import Agreement, Decision, InputRecord, Quara
 from truthsieve.pipeline.outputs import dumps_decision
 from truthsieve.pipeline.records import ErrorRecord
 from truthsieve.pipeline.routing import Reason
-from truthsieve.pipeline.screen import decide_night, ingest_batch
+from truthsieve.pipeline.screen import decide_night
+from night_support import ingest_batch
 
 GOLDEN = Path(__file__).resolve().parents[1] / "golden" / "binary"
 ADDED_BELOW = re.compile(rb'^[ ]*"below": [^\n]*,\n', re.MULTILINE)

@@ -6,7 +6,7 @@ from __future__ import annotations
 import pytest
 
 from truthsieve.pipeline import demo
-from truthsieve.pipeline.screen import decide, ingest_batch
+from night_support import decide, ingest_batch
 
 
 @pytest.fixture(scope="module")

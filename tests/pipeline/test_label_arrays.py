@@ -22,7 +22,7 @@ import yaml
 from truthsieve.pipeline import analysis, ingest, work_files
 from truthsieve.pipeline.config import load_config
 from truthsieve.pipeline.records import ErrorRecord
-from truthsieve.pipeline.screen import ingest_batch
+from night_support import ingest_batch
 from truthsieve.pipeline.store import LocalStore
 
 DATE = "2026-11-07"

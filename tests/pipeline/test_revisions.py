@@ -12,7 +12,7 @@ import pytest
 from inboxes import write_batch, write_config, write_labels
 from truthsieve.pipeline.config import load_config
 from truthsieve.pipeline.revisions import draw_revision, read_published_decision
-from truthsieve.pipeline.screen import ingest_batch
+from night_support import ingest_batch
 
 DATE = "2026-11-03"
 RULE = {"kind": "threshold", "feature": "moisture_pct", "cut": 14.05, "above": 0, "below": 1}

@@ -14,7 +14,8 @@ from truthsieve.exceptions import ConfigError
 from truthsieve.pipeline.config import Config, load_config
 from truthsieve.pipeline.ingest import ErrorRecord
 from truthsieve.pipeline.outputs import dumps_decision
-from truthsieve.pipeline.screen import decide, screen
+from truthsieve.pipeline.screen import screen
+from night_support import decide
 
 from inboxes import write_batch, write_config, write_labels
 

@@ -22,7 +22,8 @@ from oracle import Instance, all_reports, dictator_lottery, enumerate_rules, own
 from truthsieve.pipeline.config import Config
 from truthsieve.pipeline.ingest import FileCheck, InputFile
 from truthsieve.pipeline.routing import AGGREGATE
-from truthsieve.pipeline.screen import Intake, decide
+from truthsieve.pipeline.records import Intake
+from night_support import decide
 
 DATE = "2026-11-05"
 

@@ -1,7 +1,8 @@
 """Decide one night: analyse, route and render its output files (pure; no store).
 
 The steps of a night and their order live in :mod:`truthsieve.pipeline.night`; the
-command line and every Airflow operator call those steps, which call :func:`decide`.
+command line and every Airflow operator call those steps, and the publish step calls
+:func:`decide_night`.
 """
 
 from __future__ import annotations
@@ -12,14 +13,12 @@ from pathlib import Path
 
 from truthsieve.core.draw import draw, key_fingerprint
 from truthsieve.core.incentives import SourceIncentive
+from truthsieve.core.rules import RuleClass
 from truthsieve.pipeline.alerts import compose_alerts
 from truthsieve.pipeline.analysis import BatchAnalysis, analyse_batch
-from truthsieve.core.rules import RuleClass
 from truthsieve.pipeline.config import Config
 from truthsieve.pipeline.decision import Decision, build_decision, decision_json
-from truthsieve.pipeline.night import DEMO_KEY, Published, draw_key_from_environment, item_index, screen_night
-from truthsieve.pipeline.night import validate_items_at as validate_items
-from truthsieve.pipeline.night import validate_source_at
+from truthsieve.pipeline.night import DEMO_KEY, Published, draw_key_from_environment, screen_night
 from truthsieve.pipeline.output_tables import aggregate_table, sources_table
 from truthsieve.pipeline.outputs import dumps_decision, parquet_bytes
 from truthsieve.pipeline.records import Intake
@@ -28,20 +27,7 @@ from truthsieve.pipeline.revisions import draw_revision
 from truthsieve.pipeline.routing import AGGREGATE, REVIEW, route_batch
 from truthsieve.pipeline.verdicts import REVIEW_NOTE
 
-__all__ = ["DEMO_KEY", "Intake", "decide", "draw_key_from_environment", "ingest_batch", "screen", "validate_items"]
-
-ScreenResult = Published
-
-
-def ingest_batch(inbox: str | Path, batch_date: str, config: Config) -> Intake:
-    """Validate the items table and every source folder of one local night, in memory."""
-    from truthsieve.pipeline.layout import scan_batch
-
-    inbox = Path(inbox)
-    folders = [p.name for p in scan_batch(inbox, batch_date).sources]  # refuses a missing night
-    items = validate_items(inbox, batch_date, config)
-    index = item_index(items)
-    return Intake(batch_date, items, [validate_source_at(inbox, batch_date, f, config, index) for f in folders])
+__all__ = ["DEMO_KEY", "Decided", "decide_night", "draw_key_from_environment", "screen"]
 
 
 @dataclass(frozen=True)
@@ -104,12 +90,6 @@ def decide_night(
         files["quarantine/errors.json"] = dumps_decision({"batch_date": intake.batch_date, "errors": as_json["errors"]})
     files["report.html"] = render_report(decision, analysis, in_force_before, recent, config.routing).encode()
     return Decided(decision, files, analysis, as_json)
-
-
-def decide(intake: Intake, config: Config, history: Mapping, *args, **kwargs) -> tuple[dict, dict[str, bytes], BatchAnalysis | None]:
-    """:func:`decide_night` with the decision as its JSON form: (decision, files, analysis)."""
-    decided = decide_night(intake, config, history, *args, **kwargs)
-    return decided.as_json, decided.files, decided.analysis
 
 
 def screen(
