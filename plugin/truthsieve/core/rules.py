@@ -135,6 +135,9 @@ class RuleClassKind:
     :param size_for_classes: the number of rules as a function of ``K`` when the items do
         not change it (``constant``: ``K``), else None; the configuration uses it to refuse
         a mechanism that needs a fixed number of rules before any data is read.
+    :param grows_with_items: the class's rules are cut from the items' values (``threshold``),
+        so no finite size is fixed before the labels: the sample-size bound goes through
+        the growth function over the configured features, not a union bound.
     """
 
     name: str
@@ -143,6 +146,7 @@ class RuleClassKind:
     needs_features: bool = False
     uses_rule_columns: bool = False
     size_for_classes: Callable[[int], int] | None = None
+    grows_with_items: bool = False
 
 
 def _rule_columns(columns: pd.Index) -> list[str]:
@@ -160,6 +164,7 @@ RULE_CLASSES: Registry[RuleClassKind] = Registry(
             "x > cut gets one class, the rest another, per feature; the constant rules too",
             lambda columns, n_items, k: ThresholdRules(columns, k),
             needs_features=True,
+            grows_with_items=True,
         ),
         RuleClassKind(
             "listed", "the rule__<name> columns of the items table", lambda columns, n_items, k: ListedRules(columns, k), uses_rule_columns=True

@@ -29,7 +29,7 @@ from truthsieve.core.dawid_skene import DawidSkeneFit, dawid_skene
 from truthsieve.core.incentives import SourceIncentive, analyse_source, context_from_totals, incentive_context, source_incentive
 from truthsieve.core.labels import Labels, LabelMatrix, as_ids, build_label_matrix, id_array, normalised_weights, sorted_items
 from truthsieve.core.mechanisms import ConsensusFit, MechanismResult, fit_consensus, run_mechanism
-from truthsieve.core.rules import RuleClass, build_rule_class
+from truthsieve.core.rules import RuleClass, build_rule_class, rule_class_kind
 from truthsieve.core.sampling import items_needed
 from truthsieve.core.source_checks import SourceHistory, SourceReport, assess_sources
 from truthsieve.core.statistics import FloatArray, SourceLabels
@@ -58,8 +58,7 @@ def class_count(config: Config, n_classes: int | None = None) -> int:
     """``K``: the explicit ``n_classes``, else the length of ``config.classes``, else 2."""
     if n_classes is not None:
         return n_classes
-    names = getattr(config, "classes", None)
-    return len(names) if names else 2
+    return len(config.classes) if config.classes else 2
 
 
 def prepare(
@@ -231,6 +230,6 @@ def analyse_batch(
 def items_needed_for(n_sources: int, rule_class: RuleClass, config: Config) -> int:
     """:func:`~truthsieve.core.sampling.items_needed` for the configured class."""
     epsilon, delta = config.analysis.sample_epsilon, config.analysis.sample_delta
-    if rule_class.kind == "threshold":
+    if rule_class_kind(rule_class.kind).grows_with_items:
         return items_needed(n_sources, epsilon, delta, threshold_features=len(config.rule_class.features))
     return items_needed(n_sources, epsilon, delta, finite_size=rule_class.size)
