@@ -1,8 +1,11 @@
 """Writing a batch's outputs: atomically, under a per-date lock, never half-visible.
 
-Local layout: each publish writes one immutable revision folder
+Local layout: each publish writes one revision folder
 ``<out>/.revisions/batch_date=D.<token>/`` and then replaces ``<out>/batch_date=D``, a
-relative symlink, with a new symlink to it in one ``os.replace``. A reader of
+relative symlink, with a new symlink to it in one ``os.replace``. The published files
+never change afterwards, but for two status files kept beside them and rewritten whole
+(:func:`write_atomic`, under the date lock): ``review.json`` (a person's verdict,
+:mod:`truthsieve.pipeline.verdicts`) and ``alerts_sent.json`` (deliveries). A reader of
 ``<out>/batch_date=D/decision.json`` (or of the drift history) therefore sees either the
 previous night's files or the new ones, never a missing or half-swapped date, whatever
 moment the writer is killed at. A dead run's unreferenced revision, temporary link or
