@@ -154,3 +154,28 @@ def test_ties_between_cuts_and_pairs_resolve_as_the_full_pass(seed):
         for target in range(rule_class.size):
             expected = full_reaches(shared, 0.5, change, target)
             assert threshold_reaches(rule_class, shared, 0.5, rows, bins[:, positions], target) == expected, (count, target)
+
+
+def previous_linear_risks(rule_class, costs, items=None):
+    """``ThresholdRules.linear_risks`` as it was before it wrote the pairs in place."""
+    totals, parts = rule_class._parts(costs, items)
+    out = np.empty(rule_class.size)
+    out[: rule_class.n_classes] = totals
+    above, below = rule_class.pairs[:, 0], rule_class.pairs[:, 1]
+    for (alpha, delta), start, stop in zip(parts, rule_class.offsets[:-1], rule_class.offsets[1:]):
+        out[start:stop] = rule_class._pair_risks(alpha, delta, above, below).ravel()
+    return out
+
+
+@pytest.mark.parametrize("n_classes", [2, 3, 4])
+@pytest.mark.parametrize("seed", range(10))
+def test_threshold_risks_are_the_previous_floats_bit_for_bit(seed, n_classes):
+    matrix, rule_class = random_night(200 + seed, n_classes)
+    rng = np.random.default_rng(seed)
+    for costs, items in [
+        (matrix.global_costs(), None),
+        (rng.normal(size=(matrix.n_items, n_classes)), None),
+        (rng.normal(size=(9, n_classes)), np.sort(rng.choice(matrix.n_items, 9, replace=False))),
+    ]:
+        now, before = rule_class.linear_risks(costs, items), previous_linear_risks(rule_class, costs, items)
+        assert now.tobytes() == before.tobytes()

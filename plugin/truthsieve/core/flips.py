@@ -55,7 +55,7 @@ class FlipSource:
         self.item_weights = own.item_weights
         self.rule_class = rule_class
         self.private_linear = rule_class.linear_risks(own.sparse_costs(rule_class.n_classes), items=self.items)
-        self._bins: IntArray | None = None  # global_bins of the own items, at the first check
+        self._towards: tuple[int, IntArray, IntArray] | None = None
 
     def change_rows(self, positions: IntArray, classes: IntArray) -> FloatArray:
         """``(|F|, K)`` change of the private costs when the labels at ``positions``
@@ -74,9 +74,11 @@ class FlipSource:
     def towards(self, rule: int) -> tuple[IntArray, IntArray]:
         """Positions in ``S_i`` where ``rule`` differs from ``y_i``, and ``rule``'s classes
         there: O(|S_i|)."""
-        predicted = self.rule_class.predict(rule, self.items)
-        positions = np.flatnonzero(predicted != self.truth)
-        return positions, predicted[positions]
+        if self._towards is None or self._towards[0] != rule:  # the last rule's answer is kept
+            predicted = self.rule_class.predict(rule, self.items)
+            positions = np.flatnonzero(predicted != self.truth)
+            self._towards = (rule, positions, predicted[positions])
+        return self._towards[1], self._towards[2]
 
     def change_to(self, rule: int) -> FloatArray:
         """Change of every rule's R_i if the source reported ``rule``'s labels."""
@@ -86,10 +88,8 @@ class FlipSource:
         """Whether ERM returns ``target`` when the labels at ``positions`` become ``classes``."""
         rules = self.rule_class
         if isinstance(rules, ThresholdRules) and len(positions) * len(rules.features) * SPARSE_FLIPS < cut_bases(rules)[-1]:
-            if self._bins is None:
-                self._bins = global_bins(rules, self.items)
             change = self.change_rows(positions, classes)
-            return threshold_reaches(rules, global_linear, weight, change, self._bins[:, positions], target)
+            return threshold_reaches(rules, global_linear, weight, change, global_bins(rules, self.items[positions]), target)
         return full_reaches(global_linear, weight, self.flip_change(positions, classes), target)
 
 
