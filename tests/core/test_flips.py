@@ -179,3 +179,20 @@ def test_threshold_risks_are_the_previous_floats_bit_for_bit(seed, n_classes):
     ]:
         now, before = rule_class.linear_risks(costs, items), previous_linear_risks(rule_class, costs, items)
         assert now.tobytes() == before.tobytes()
+
+
+@pytest.mark.parametrize("n_classes", [2, 3, 4])
+def test_when_every_rule_ties_only_the_first_is_reached(n_classes):
+    # Hand calculation: every item costs 1 for every class, so every rule's risk is m = 6
+    # and no flip is made (change 0): all rules tie, and the tie-break returns rule 0 (the
+    # constant class 0). Every later constant and every threshold rule is not reached.
+    m = 6
+    items = pd.DataFrame({"item_id": [f"i{k}" for k in range(m)], "f0": np.arange(m, dtype=float)})
+    items["f1"], items["f2"] = items["f0"] % 2, items["f0"] % 3
+    rule_class = build_rule_class("threshold", items, items["item_id"].to_numpy(), FEATURES, n_classes)
+    shared = rule_class.linear_risks(np.ones((m, n_classes)))
+    assert (shared == 6.0).all()
+    none = np.zeros(0, dtype=np.int64)
+    rows, bins = np.zeros((0, n_classes)), global_bins(rule_class, none)
+    reached = [threshold_reaches(rule_class, shared, 1.0, rows, bins, t) for t in range(rule_class.size)]
+    assert reached == [True] + [False] * (rule_class.size - 1)
