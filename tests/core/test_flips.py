@@ -196,3 +196,18 @@ def test_when_every_rule_ties_only_the_first_is_reached(n_classes):
     rows, bins = np.zeros((0, n_classes)), global_bins(rule_class, none)
     reached = [threshold_reaches(rule_class, shared, 1.0, rows, bins, t) for t in range(rule_class.size)]
     assert reached == [True] + [False] * (rule_class.size - 1)
+
+
+@pytest.mark.parametrize("n_classes", [2, 3, 4])
+@pytest.mark.parametrize("seed", range(10))
+def test_risks_at_some_rules_are_the_full_pass_floats(seed, n_classes):
+    matrix, rule_class = random_night(300 + seed, n_classes)
+    rng = np.random.default_rng(seed)
+    costs = rng.normal(size=(matrix.n_items, n_classes))
+    subset = np.sort(rng.choice(matrix.n_items, max(1, matrix.n_items // 3), replace=False))
+    for rows, items in [(costs, None), (costs[subset], subset)]:
+        full = rule_class.linear_risks(rows, items)
+        for count in (1, 3, rule_class.size):
+            rules = np.sort(rng.choice(rule_class.size, min(count, rule_class.size), replace=False))
+            rules[0] = 0 if count == rule_class.size else rules[0]  # a constant rule too
+            assert rule_class.linear_risks_at(rows, items, rules).tobytes() == full[rules].tobytes()

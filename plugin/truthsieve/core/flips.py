@@ -84,6 +84,13 @@ class FlipSource:
         """Change of every rule's R_i if the source reported ``rule``'s labels."""
         return self.flip_change(*self.towards(rule))
 
+    def change_at(self, rule: int, rules: IntArray) -> FloatArray:
+        """``change_to(rule)[rules]``, the same floats; for thresholds without scoring every rule."""
+        if not isinstance(self.rule_class, ThresholdRules):
+            return self.change_to(rule)[rules]
+        positions, classes = self.towards(rule)
+        return self.rule_class.linear_risks_at(self.change_rows(positions, classes), self.items[positions], rules)
+
     def reaches(self, global_linear: FloatArray, weight: float, positions: IntArray, classes: IntArray, target: int) -> bool:
         """Whether ERM returns ``target`` when the labels at ``positions`` become ``classes``."""
         rules = self.rule_class

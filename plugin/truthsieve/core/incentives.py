@@ -56,7 +56,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import numpy.typing as npt
 
 from truthsieve.core.flips import FlipSource
 from truthsieve.core.labels import TIE_TOLERANCE, LabelMatrix
@@ -200,17 +199,16 @@ def analyse_source(
     others_rule = first_minimum(others_risks)
     own_rule = first_minimum(private)
 
-    def beats(rule: int) -> npt.NDArray[np.bool_]:
-        # Rules with G(c) <= G(rule) + w d_i(rule, c): the ones that could beat `rule`.
-        distance = np.maximum(source.private_linear + source.change_to(rule), 0.0)
-        result: npt.NDArray[np.bool_] = others_risks <= others_risks[rule] + weight * distance + TIE_TOLERANCE
-        return result
-
-    survivors = beats(others_rule)
-    if consensus_rule != others_rule:  # the same mask otherwise
-        survivors = survivors & beats(consensus_rule)
+    # Only rules cheaper for i than the best known reachable one are candidates, and of those
+    # only the ones that could beat o and e: G(c) <= G(r) + w d_i(r, c) for r = o, e (the
+    # distance read at those rules only, the same floats as over the whole class).
     best_known = min((consensus_rule, others_rule), key=lambda r: (private[r], r))
-    candidates = _by_private_risk(np.flatnonzero(survivors & (private < private[best_known] - TIE_TOLERANCE)), private)
+    cheaper = np.flatnonzero(private < private[best_known] - TIE_TOLERANCE)
+    for rule in dict.fromkeys((others_rule, consensus_rule)):  # once when e = o
+        if len(cheaper):
+            distance = np.maximum(source.private_linear[cheaper] + source.change_at(rule, cheaper), 0.0)
+            cheaper = cheaper[others_risks[cheaper] <= others_risks[rule] + weight * distance + TIE_TOLERANCE]
+    candidates = _by_private_risk(cheaper, private)
 
     target, exact, checks, untested_floor = best_known, True, 0, 0.0
     for candidate in candidates:

@@ -136,6 +136,30 @@ class ThresholdRules(RuleClass):
                     np.add(alpha[above], delta[:, below], out=block[:, column])
         return out
 
+    def linear_risks_at(self, costs: FloatArray, items: IntArray | None, rules: IntArray) -> FloatArray:
+        """``linear_risks(costs, items)[rules]``, the same floats, scoring only the features
+        that ``rules`` use and no pair matrix."""
+        costs = np.asarray(costs, dtype=np.float64)
+        totals = class_totals(costs)
+        difference = costs[:, 1:] - costs[:, :1]
+        out = np.empty(len(rules))
+        constant = rules < self.n_classes
+        out[constant] = totals[rules[constant]]
+        block = np.searchsorted(self.offsets, rules, side="right") - 1
+        for number in np.unique(block[~constant]):
+            feature, chosen = self.features[number], np.flatnonzero(block == number)
+            cut, pair = np.divmod(rules[chosen] - self.offsets[number], len(self.pairs))
+            bins = feature.bins if items is None else feature.bins[items]
+            delta = np.zeros((len(chosen), self.n_classes))
+            for b in range(1, self.n_classes):
+                column = np.ascontiguousarray(difference[:, b - 1])
+                sums = np.bincount(bins, weights=column, minlength=len(feature.cuts) + 1)[: len(feature.cuts)]
+                delta[:, b] = np.cumsum(sums)[cut]
+            rows, above, below = np.arange(len(chosen)), self.pairs[pair, 0], self.pairs[pair, 1]
+            alpha = np.where(above == 0, totals[0], totals[above] - delta[rows, above])
+            out[chosen] = np.where(below == 0, alpha, alpha + delta[rows, below])
+        return out
+
     def fit_with_risk(self, costs: FloatArray, items: IntArray | None = None) -> tuple[int, float]:
         """Exact ERM without listing the pairs: per cut the best pair is (best ``above``,
         best ``below``) unless both are the same class, and then the better of (best,
