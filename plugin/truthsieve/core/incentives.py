@@ -22,10 +22,10 @@ truthful consensus ``e`` is reachable, and so is the others' own ERM ``o`` (repo
 the lower bound ``max(0, R_i(e) - R_i(o))`` for free.
 
 **Search.** A reachable ``c`` must beat ``o`` and ``e``:
-``G(c) <= G(o) + w d_i(o, c)`` and ``G(c) <= G(e) + w d_i(e, c)``. Each side is one
-vectorised risk evaluation over the whole class. Survivors with ``R_i`` below the
-best known reachable rule are checked in increasing ``R_i``; the first reachable one
-closes the bracket. For ``constant`` and ``listed`` every survivor is checked (exact);
+``G(c) <= G(o) + w d_i(o, c)`` and ``G(c) <= G(e) + w d_i(e, c)``, tested only at the
+rules with ``R_i`` below the best known reachable rule (``d_i`` read there, one pass when
+``e = o``). Survivors are checked in increasing ``R_i`` (each check by cut segments, see
+:mod:`truthsieve.core.flips`); the first reachable one closes the bracket. For ``constant`` and ``listed`` every survivor is checked (exact);
 for ``threshold`` at most ``budget`` checks are made per source, and if they run out
 the result is the bracket ``[gain_lower, gain_upper]`` with ``gain_exact = False``.
 
