@@ -145,7 +145,7 @@ def threshold_reaches(
     first_cuts = _distinct(np.concatenate(marks))
     first_cuts = first_cuts[first_cuts < total_cuts]
     # Δ at a segment's first cut: the feature's prefix sum of the bin sums (from 0.0, in bin
-    # order, as np.cumsum runs in ThresholdRules._parts) up to its last occupied bin at or
+    # order, as np.cumsum runs in ThresholdRules._deltas) up to its last occupied bin at or
     # below that cut; 0.0 before the feature's first occupied bin.
     bounds = np.searchsorted(occupied, bases)
     prefix = np.zeros((len(occupied) + len(bases) - 1, n_classes - 1))
@@ -181,7 +181,7 @@ def _bin_sums(bins: IntArray, difference: FloatArray, n_features: int, total_cut
     """The occupied cut bins (increasing, ``total_cuts`` left out) and, per class
     ``b >= 1``, the sum of ``difference[:, b - 1]`` over each. ``bins`` is feature-major
     (``d`` runs over the flipped items), so every bin's items are added in the flipped
-    order from 0.0, exactly as ``np.bincount`` sums them in ``ThresholdRules._parts``."""
+    order from 0.0, exactly as ``np.bincount`` sums them in ``ThresholdRules._deltas``."""
     inside = bins < total_cuts
     occupied = _distinct(bins[inside])
     inverse = np.searchsorted(occupied, bins[inside])
