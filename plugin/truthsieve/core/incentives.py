@@ -22,10 +22,10 @@ truthful consensus ``e`` is reachable, and so is the others' own ERM ``o`` (repo
 the lower bound ``max(0, R_i(e) - R_i(o))`` for free.
 
 **Search.** A reachable ``c`` must beat ``o`` and ``e``:
-``G(c) <= G(o) + w d_i(o, c)`` and ``G(c) <= G(e) + w d_i(e, c)``. Each side is one
-vectorised risk evaluation over the whole class. Survivors with ``R_i`` below the
-best known reachable rule are checked in increasing ``R_i``; the first reachable one
-closes the bracket. For ``constant`` and ``listed`` every survivor is checked (exact);
+``G(c) <= G(o) + w d_i(o, c)`` and ``G(c) <= G(e) + w d_i(e, c)``, tested only at the
+rules with ``R_i`` below the best known reachable rule (``d_i`` read there, one pass when
+``e = o``). Survivors are checked in increasing ``R_i`` (each check by cut segments, see
+:mod:`truthsieve.core.flips`); the first reachable one closes the bracket. For ``constant`` and ``listed`` every survivor is checked (exact);
 for ``threshold`` at most ``budget`` checks are made per source, and if they run out
 the result is the bracket ``[gain_lower, gain_upper]`` with ``gain_exact = False``.
 
@@ -57,6 +57,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from truthsieve.core.flips import FlipSource
 from truthsieve.core.labels import TIE_TOLERANCE, LabelMatrix
 from truthsieve.core.mechanisms import ConsensusFit
 from truthsieve.core.rules import RuleClass, ThresholdRules, first_minimum
@@ -107,57 +108,6 @@ def context_from_totals(totals: FloatArray, rule_class: RuleClass) -> FloatArray
     return rule_class.linear_risks(totals)
 
 
-class _Source:
-    """Source ``i``'s private costs, kept on its own items ``S_i`` only.
-
-    **Incremental scoring.** If ``i`` reports ``z`` instead of ``y_i``, its cost array
-    changes only on the flipped set ``F = {j in S_i : z_j != y_ij}``: with
-    ``s_j = u_j / U_i``, the column of the old class ``y_ij`` gains ``s_j`` (predicting it
-    is now wrong) and the column of the new class ``z_j`` loses ``s_j``; the other
-    ``K - 2`` columns do not change (with two classes: ``cost0`` and ``cost1`` move by
-    ``+-s_j`` in opposite directions). Risks are linear in the costs, so every rule's
-    risk under ``z`` is the base risk plus ``linear_risks`` of that change on ``F``: a
-    ``bincount`` of ``F``'s cut bins per feature and class, O(d K |F| + cuts K²),
-    instead of a full pass. For a rule ``r`` the change is
-    ``sum_{j in F} s_j ([r(x_j) = y_ij] - [r(x_j) = z_j])``.
-    """
-
-    def __init__(self, own: SourceLabels, rule_class: RuleClass) -> None:
-        self.items = own.items
-        self.truth = own.classes
-        self.shares = own.shares
-        self.item_weights = own.item_weights
-        self.rule_class = rule_class
-        self.private_linear = rule_class.linear_risks(own.sparse_costs(rule_class.n_classes), items=self.items)
-
-    def flip_change(self, positions: IntArray, classes: IntArray) -> FloatArray:
-        """Change of every rule's private risk when the labels at ``positions`` (indices
-        into ``self.items``) become ``classes``."""
-        shares = self.shares[positions]
-        rows = np.arange(len(positions))
-        change = np.zeros((len(positions), self.rule_class.n_classes))
-        change[rows, self.truth[positions]] = shares
-        change[rows, classes] = -shares
-        return self.rule_class.linear_risks(change, items=self.items[positions])
-
-    def towards(self, rule: int) -> tuple[IntArray, IntArray]:
-        """Positions in ``S_i`` where ``rule`` differs from ``y_i``, and ``rule``'s classes
-        there: O(|S_i|)."""
-        predicted = self.rule_class.predict(rule, self.items)
-        positions = np.flatnonzero(predicted != self.truth)
-        return positions, predicted[positions]
-
-    def change_to(self, rule: int) -> FloatArray:
-        """Change of every rule's R_i if the source reported ``rule``'s labels."""
-        return self.flip_change(*self.towards(rule))
-
-
-def _reaches(global_linear: FloatArray, weight: float, change: FloatArray, target: int) -> bool:
-    # risks(G + w * costs(z)) = R + w * (change of R_i), R the global risk with y_i.
-    risks = global_linear + weight * change
-    return first_minimum(np.maximum(risks, 0.0, out=risks)) == target
-
-
 def _lie_order(rule_class: RuleClass, target: int, items: IntArray) -> IntArray:
     """Disagreeing items, most useful first: nearest the target's cut for thresholds."""
     if isinstance(rule_class, ThresholdRules) and target >= rule_class.n_classes:
@@ -178,7 +128,7 @@ def _by_private_risk(candidates: IntArray, private: FloatArray) -> IntArray:
 
 
 def _cheapest_lie(
-    source: _Source, own: SourceLabels, target: int, consensus_rule: int, global_linear: FloatArray
+    source: FlipSource, own: SourceLabels, target: int, consensus_rule: int, global_linear: FloatArray
 ) -> tuple[float, float]:
     if target == consensus_rule:
         return 0.0, 0.0
@@ -192,7 +142,7 @@ def _cheapest_lie(
     ordered, ordered_classes = disagreeing[order], classes[order]
 
     def reaches_with(count: int) -> bool:
-        return _reaches(global_linear, weight, source.flip_change(ordered[:count], ordered_classes[:count]), target)
+        return source.reaches(global_linear, weight, ordered[:count], ordered_classes[:count], target)
 
     # Reachable with the first `high` flips, not with the first `low`. Prefixes lighter
     # than the margin bound cannot reach, so the search starts there and gallops up:
@@ -230,7 +180,7 @@ def analyse_source(
 
     By linearity the others' risks are ``G = R - w R_i``, and every reachability check
     and distance ``d_i(c, .)`` is ``R_i`` plus the change on the items where ``c``
-    differs from ``y_i`` (see :class:`_Source`): no full pass over the night per check,
+    differs from ``y_i`` (see :mod:`truthsieve.core.flips`): no full pass over the night per check,
     and nothing of the other sources but the night's summed risks.
 
     :param global_linear: :func:`context_from_totals` of the night (the unclipped global
@@ -242,21 +192,23 @@ def analyse_source(
     if budget is None or not isinstance(rule_class, ThresholdRules):
         budget = rule_class.size
     weight = own.weight
-    source = _Source(own, rule_class)
+    source = FlipSource(own, rule_class)
     private = np.maximum(source.private_linear, 0.0)
     others_risks = np.maximum(global_linear - weight * source.private_linear, 0.0)
     consensus_rule = consensus.rule
     others_rule = first_minimum(others_risks)
     own_rule = first_minimum(private)
 
-    def distance_to(rule: int) -> FloatArray:
-        return np.maximum(source.private_linear + source.change_to(rule), 0.0)
-
-    survivors = (others_risks <= others_risks[others_rule] + weight * distance_to(others_rule) + TIE_TOLERANCE) & (
-        others_risks <= others_risks[consensus_rule] + weight * distance_to(consensus_rule) + TIE_TOLERANCE
-    )
+    # Only rules cheaper for i than the best known reachable one are candidates, and of those
+    # only the ones that could beat o and e: G(c) <= G(r) + w d_i(r, c) for r = o, e (the
+    # distance read at those rules only, the same floats as over the whole class).
     best_known = min((consensus_rule, others_rule), key=lambda r: (private[r], r))
-    candidates = _by_private_risk(np.flatnonzero(survivors & (private < private[best_known] - TIE_TOLERANCE)), private)
+    cheaper = np.flatnonzero(private < private[best_known] - TIE_TOLERANCE)
+    for rule in dict.fromkeys((others_rule, consensus_rule)):  # once when e = o
+        if len(cheaper):
+            distance = np.maximum(source.private_linear[cheaper] + source.change_at(rule, cheaper), 0.0)
+            cheaper = cheaper[others_risks[cheaper] <= others_risks[rule] + weight * distance + TIE_TOLERANCE]
+    candidates = _by_private_risk(cheaper, private)
 
     target, exact, checks, untested_floor = best_known, True, 0, 0.0
     for candidate in candidates:
@@ -264,7 +216,7 @@ def analyse_source(
             exact, untested_floor = False, float(private[candidate])
             break
         checks += 1
-        if _reaches(global_linear, weight, source.change_to(int(candidate)), int(candidate)):
+        if source.reaches(global_linear, weight, *source.towards(int(candidate)), int(candidate)):
             target = int(candidate)
             break
 

@@ -83,14 +83,12 @@ class ThresholdRules(RuleClass):
         self.offsets = np.cumsum([n_classes] + [per_cut * len(f.cuts) for f in self.features])
         self.size = int(self.offsets[-1])
 
-    def _parts(
-        self, costs: FloatArray, items: IntArray | None
-    ) -> tuple[FloatArray, list[tuple[FloatArray, FloatArray]]]:
-        """``T`` and, per feature, ``(α, Δ)`` of shape ``(cuts, K)`` (``Δ[:, 0] = 0``)."""
+    def _deltas(self, costs: FloatArray, items: IntArray | None) -> tuple[FloatArray, list[FloatArray]]:
+        """``T`` and, per feature, ``Δ`` of shape ``(cuts, K)`` (``Δ[:, 0] = 0``)."""
         costs = np.asarray(costs, dtype=np.float64)
         totals = class_totals(costs)
         difference = costs[:, 1:] - costs[:, :1]
-        parts = []
+        deltas = []
         for feature in self.features:
             n_cuts = len(feature.cuts)
             bins = feature.bins if items is None else feature.bins[items]
@@ -98,11 +96,21 @@ class ThresholdRules(RuleClass):
             for b in range(1, self.n_classes):
                 column = np.ascontiguousarray(difference[:, b - 1])
                 delta[:, b] = np.cumsum(np.bincount(bins, weights=column, minlength=n_cuts + 1)[:n_cuts])
-            alpha = np.empty((n_cuts, self.n_classes))
-            alpha[:, 0] = totals[0]
-            alpha[:, 1:] = totals[1:] - delta[:, 1:]
-            parts.append((alpha, delta))
-        return totals, parts
+            deltas.append(delta)
+        return totals, deltas
+
+    def _parts(
+        self, costs: FloatArray, items: IntArray | None
+    ) -> tuple[FloatArray, list[tuple[FloatArray, FloatArray]]]:
+        """``T`` and, per feature, ``(α, Δ)`` of shape ``(cuts, K)`` (``Δ[:, 0] = 0``)."""
+        totals, deltas = self._deltas(costs, items)
+        return totals, [(self._alpha(totals, delta), delta) for delta in deltas]
+
+    def _alpha(self, totals: FloatArray, delta: FloatArray) -> FloatArray:
+        alpha = np.empty((len(delta), self.n_classes))
+        alpha[:, 0] = totals[0]
+        alpha[:, 1:] = totals[1:] - delta[:, 1:]
+        return alpha
 
     @staticmethod
     def _pair_risks(alpha: FloatArray, delta: FloatArray, above: IntArray, below: IntArray) -> FloatArray:
@@ -113,12 +121,43 @@ class ThresholdRules(RuleClass):
         return out
 
     def linear_risks(self, costs: FloatArray, items: IntArray | None = None) -> FloatArray:
-        totals, parts = self._parts(costs, items)
+        totals, deltas = self._deltas(costs, items)
         out = np.empty(self.size)
         out[: self.n_classes] = totals
-        above, below = self.pairs[:, 0], self.pairs[:, 1]
-        for (alpha, delta), start, stop in zip(parts, self.offsets[:-1], self.offsets[1:]):
-            out[start:stop] = self._pair_risks(alpha, delta, above, below).ravel()
+        for delta, start, stop in zip(deltas, self.offsets[:-1], self.offsets[1:]):
+            # The floats of _pair_risks(α, Δ, ...), written in place pair by pair: α(a) is
+            # T(0) for a = 0, else T(a) - Δ(a); the pair adds Δ(b) unless b = 0.
+            block = out[start:stop].reshape(len(delta), len(self.pairs))
+            alpha = [np.full(len(delta), totals[0])] + [totals[a] - delta[:, a] for a in range(1, self.n_classes)]
+            for column, (above, below) in enumerate(self.pairs):
+                if below == 0:
+                    block[:, column] = alpha[above]
+                else:
+                    np.add(alpha[above], delta[:, below], out=block[:, column])
+        return out
+
+    def linear_risks_at(self, costs: FloatArray, items: IntArray | None, rules: IntArray) -> FloatArray:
+        """``linear_risks(costs, items)[rules]``, the same floats, scoring only the features
+        that ``rules`` use and no pair matrix."""
+        costs = np.asarray(costs, dtype=np.float64)
+        totals = class_totals(costs)
+        difference = costs[:, 1:] - costs[:, :1]
+        out = np.empty(len(rules))
+        constant = rules < self.n_classes
+        out[constant] = totals[rules[constant]]
+        block = np.searchsorted(self.offsets, rules, side="right") - 1
+        for number in np.unique(block[~constant]):
+            feature, chosen = self.features[number], np.flatnonzero(block == number)
+            cut, pair = np.divmod(rules[chosen] - self.offsets[number], len(self.pairs))
+            bins = feature.bins if items is None else feature.bins[items]
+            delta = np.zeros((len(chosen), self.n_classes))
+            for b in range(1, self.n_classes):
+                column = np.ascontiguousarray(difference[:, b - 1])
+                sums = np.bincount(bins, weights=column, minlength=len(feature.cuts) + 1)[: len(feature.cuts)]
+                delta[:, b] = np.cumsum(sums)[cut]
+            rows, above, below = np.arange(len(chosen)), self.pairs[pair, 0], self.pairs[pair, 1]
+            alpha = np.where(above == 0, totals[0], totals[above] - delta[rows, above])
+            out[chosen] = np.where(below == 0, alpha, alpha + delta[rows, below])
         return out
 
     def fit_with_risk(self, costs: FloatArray, items: IntArray | None = None) -> tuple[int, float]:
