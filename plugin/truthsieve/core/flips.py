@@ -34,7 +34,7 @@ from __future__ import annotations
 import numpy as np
 import numpy.typing as npt
 
-from truthsieve.core.labels import TIE_TOLERANCE
+from truthsieve.core.statistics import TIE_TOLERANCE
 from truthsieve.core.rule_class import RuleClass, class_totals, first_minimum
 from truthsieve.core.statistics import FloatArray, IntArray, SourceLabels
 from truthsieve.core.threshold_rules import ThresholdRules

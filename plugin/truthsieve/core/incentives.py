@@ -58,7 +58,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from truthsieve.core.flips import FlipSource
-from truthsieve.core.labels import TIE_TOLERANCE, LabelMatrix
+from truthsieve.core.labels import LabelMatrix
+from truthsieve.core.statistics import TIE_TOLERANCE
 from truthsieve.core.mechanisms import ConsensusFit
 from truthsieve.core.rules import RuleClass, ThresholdRules, first_minimum
 from truthsieve.core.search import smallest_satisfying

@@ -31,6 +31,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
+from truthsieve.core.ids import as_ids, id_array
 from truthsieve.core.statistics import FloatArray, SourceLabels, private_costs, source_statistics, sum_statistics
 from truthsieve.exceptions import ClassIndexError, InputError, NoItemsError, NoSourcesError, UnknownReferenceError, WeightError
 
@@ -297,32 +298,3 @@ def _dense_from_long(labels: "pd.DataFrame", item_ids: np.ndarray, source_weight
     dense_labels[rows, columns] = classes.astype(np.int8)
     labelled[rows, columns] = True
     return present, weights, dense_labels, labelled
-
-
-def id_array(values: Any) -> pa.Array:
-    """Ids as one Arrow string array: from an Arrow column, a pandas column or index, or a list."""
-    if not isinstance(values, (pa.Array, pa.ChunkedArray)):
-        try:
-            values = pa.array(values)
-        except (pa.ArrowException, TypeError, ValueError):
-            values = pa.array(np.asarray(values, dtype=object).astype(str))
-    if isinstance(values, pa.ChunkedArray):  # pandas' Arrow-backed columns come chunked
-        values = values.combine_chunks()
-    if values.type != pa.string():
-        values = values.cast(pa.string())
-    return values
-
-
-def as_ids(values: Any) -> np.ndarray:
-    """Ids as a NumPy unicode array: sorts and compares in C, whatever pandas' string dtype."""
-    return np.asarray(values, dtype=object).astype(str)
-
-
-def risk_is_zero(value: float) -> bool:
-    """Risks are sums of non-negative floats in [0, 1]; below this they count as 0."""
-    return abs(value) <= TIE_TOLERANCE
-
-
-# Two risks closer than this are tied; float rounding in prefix sums over a million
-# items stays orders of magnitude below it (common practice for float comparisons).
-TIE_TOLERANCE = 1e-10

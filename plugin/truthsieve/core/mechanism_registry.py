@@ -27,7 +27,8 @@ from typing import TYPE_CHECKING, ClassVar, Literal
 
 import numpy as np
 
-from truthsieve.core.labels import TIE_TOLERANCE, LabelMatrix
+from truthsieve.core.labels import LabelMatrix
+from truthsieve.core.statistics import TIE_TOLERANCE
 from truthsieve.core.registry import Registry
 from truthsieve.core.rules import RULE_CLASSES, RuleClass
 from truthsieve.core.statistics import FloatArray, SourceLabels, shared_inputs

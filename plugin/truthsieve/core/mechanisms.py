@@ -74,7 +74,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from truthsieve.core.labels import LabelMatrix, risk_is_zero
+from truthsieve.core.labels import LabelMatrix
+from truthsieve.core.statistics import risk_is_zero
 from truthsieve.core.mechanism_registry import (
     DICTATORS,
     MECHANISM_REGISTRY,

@@ -1,7 +1,7 @@
 """The rule-class base: every rule's risk from one ``(m, K)`` cost array, and the tie-break.
 
 ``risk(r) = sum_j costs[j, r(x_j)]``; ERM is the first rule, in the class's listed
-order, within :data:`~truthsieve.core.labels.TIE_TOLERANCE` of the minimum.
+order, within :data:`~truthsieve.core.statistics.TIE_TOLERANCE` of the minimum.
 """
 
 from __future__ import annotations
@@ -10,7 +10,7 @@ from typing import Any
 
 import numpy as np
 
-from truthsieve.core.labels import TIE_TOLERANCE
+from truthsieve.core.statistics import TIE_TOLERANCE
 from truthsieve.core.statistics import FloatArray, IntArray
 
 RULE_COLUMN_PREFIX = "rule__"

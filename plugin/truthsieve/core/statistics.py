@@ -135,3 +135,13 @@ def others_costs(totals: FloatArray, source: SourceLabels) -> FloatArray:
 def shared_inputs(sources: Sequence[SourceLabels]) -> bool:
     """True when every source labelled exactly the same items."""
     return all(np.array_equal(s.items, sources[0].items) for s in sources[1:])
+
+
+def risk_is_zero(value: float) -> bool:
+    """Risks are sums of non-negative floats in [0, 1]; below this they count as 0."""
+    return abs(value) <= TIE_TOLERANCE
+
+
+# Two risks closer than this are tied; float rounding in prefix sums over a million
+# items stays orders of magnitude below it (common practice for float comparisons).
+TIE_TOLERANCE = 1e-10

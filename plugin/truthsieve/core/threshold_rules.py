@@ -20,7 +20,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import numpy.typing as npt
 
-from truthsieve.core.labels import TIE_TOLERANCE
+from truthsieve.core.statistics import TIE_TOLERANCE
 from truthsieve.core.rule_class import RuleClass, RuleForm, class_totals
 from truthsieve.core.statistics import FloatArray, IntArray
 from truthsieve.exceptions import RuleClassError

@@ -27,7 +27,8 @@ from truthsieve.core import statistics as core_statistics
 from truthsieve.core.agreement import batch_agreement
 from truthsieve.core.dawid_skene import DawidSkeneFit, dawid_skene
 from truthsieve.core.incentives import SourceIncentive, analyse_source, context_from_totals, incentive_context, source_incentive
-from truthsieve.core.labels import Labels, LabelMatrix, as_ids, build_label_matrix, id_array, normalised_weights, sorted_items
+from truthsieve.core.labels import Labels, LabelMatrix, build_label_matrix, normalised_weights, sorted_items
+from truthsieve.core.ids import as_ids, id_array
 from truthsieve.core.mechanisms import ConsensusFit, MechanismResult, fit_consensus, run_mechanism
 from truthsieve.core.rules import RuleClass, build_rule_class, rule_class_kind
 from truthsieve.core.sampling import items_needed

@@ -31,7 +31,7 @@ from pathlib import Path
 import numpy as np
 import pyarrow as pa
 
-from truthsieve.core.labels import id_array
+from truthsieve.core.ids import id_array
 from truthsieve.core.rules import RULE_COLUMN_PREFIX
 from truthsieve.pipeline import layout
 from truthsieve.pipeline.classes import BINARY, ClassAlphabet, decode_rule_column
@@ -196,7 +196,7 @@ def validate_source(
     label's position in the items table, or its item id when ``item_ids`` is None). An item
     labelled twice, in one file or across two, is a ``duplicate_label`` naming both places.
 
-    :param item_ids: the items table's ids (any form :func:`~truthsieve.core.labels.id_array`
+    :param item_ids: the items table's ids (any form :func:`~truthsieve.core.ids.id_array`
         takes; pass an Arrow array to avoid converting it per source).
     :param item_weights: the items' weights aligned with ``item_ids``; when given, a
         source whose labelled items all weigh 0 is an error (``no_positive_weight``).

@@ -12,7 +12,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from truthsieve.core.labels import id_array
+from truthsieve.core.ids import id_array
 from truthsieve.pipeline.classes import BINARY, ClassAlphabet, decode_labels, label_type_error
 from truthsieve.pipeline.records import MAX_ROWS_PER_RULE, ErrorRecord, row_errors
 

@@ -25,7 +25,7 @@ import pyarrow as pa
 
 from truthsieve.core.draw import DEMO_DRAW_KEY, DRAW_KEY_VARIABLE
 from truthsieve.core.incentives import SourceIncentive, context_from_totals
-from truthsieve.core.labels import id_array
+from truthsieve.core.ids import id_array
 from truthsieve.core.statistics import add_contribution
 from truthsieve.exceptions import InputError
 from truthsieve.pipeline import ingest, work_files

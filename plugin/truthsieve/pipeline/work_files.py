@@ -35,7 +35,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from truthsieve.core.incentives import SourceIncentive
-from truthsieve.core.labels import id_array
+from truthsieve.core.ids import id_array
 from truthsieve.exceptions import InputError
 from truthsieve.pipeline.layout import batch_name
 from truthsieve.pipeline.outputs import parquet_bytes
