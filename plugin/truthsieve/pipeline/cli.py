@@ -34,7 +34,7 @@ class _OneLineParser(argparse.ArgumentParser):
         self.exit(EXIT_INPUT, f"error: {self.prog}: {message} (see {self.prog} --help)\n")
 
 
-WORKERS_HELP = "processes for the per-source analysis (default: the machine's cores on a large night; 1: in this process)"
+WORKERS_HELP = "processes for the per-source analysis (default: 1, in this process, below 500,000,000 labels, the machine's cores above)"
 
 
 def _workers(text: str) -> int:
