@@ -2,11 +2,11 @@
 
 Two oracles, both independent of the segment code:
 
-* ``previous_incentives.py`` is a verbatim copy of ``core/incentives.py`` as it was before
-  the segment check (every reachability check scored every rule with
-  ``ThresholdRules.linear_risks`` and took the first minimum). Every ``SourceIncentive``
-  field of today's analysis must equal it exactly: ``repr`` of each float, so even the
-  sign of a zero counts.
+* ``tests/golden/incentives-before-segments.json`` holds every ``SourceIncentive`` of
+  the instances below as ``core/incentives.py`` gave them before the segment check
+  (commit 5abdf58: every reachability check scored every rule with
+  ``ThresholdRules.linear_risks`` and took the first minimum), each field's type and
+  ``repr``. Today's analysis must give them exactly: even the sign of a zero counts.
 * ``full_reaches`` (score every rule, first minimum) for the check itself, on random
   flips and targets chosen so that both answers occur.
 
@@ -16,13 +16,14 @@ weights, rounded features (tied values) and integer-valued costs (tied risks).
 
 from __future__ import annotations
 
-from dataclasses import asdict, fields
+import json
+from dataclasses import asdict
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 
-import previous_incentives
 from truthsieve.core import build_label_matrix, build_rule_class, fit_consensus
 from truthsieve.core import flips
 from truthsieve.core.flips import FlipSource, full_reaches, global_bins, threshold_reaches
@@ -62,16 +63,20 @@ def random_night(seed: int, n_classes: int, kind: str = "threshold"):
     return matrix, rule_class
 
 
-def assert_bit_identical(matrix, rule_class, budget) -> None:
+BEFORE = json.loads((Path(__file__).parents[1] / "golden" / "incentives-before-segments.json").read_text())["nights"]
+
+
+def assert_bit_identical(matrix, rule_class, budget, night: str) -> None:
     consensus = fit_consensus(matrix, rule_class)
     shared = incentive_context(matrix, rule_class)
-    for own in matrix.sources:
-        now = analyse_source(shared, own, rule_class, consensus, budget)
-        before = previous_incentives.analyse_source(shared, own, rule_class, consensus, budget)
-        assert [f.name for f in fields(now)] == [f.name for f in fields(before)]
-        for name, value in asdict(before).items():
-            assert type(getattr(now, name)) is type(value), name
-            assert repr(getattr(now, name)) == repr(value), (name, own.source_id)
+    before = BEFORE[night]
+    assert len(before) == matrix.n_sources
+    for own, fields_before in zip(matrix.sources, before):
+        now = asdict(analyse_source(shared, own, rule_class, consensus, budget))
+        assert sorted(now) == sorted(fields_before)
+        for name, (kind, text) in fields_before.items():
+            assert type(now[name]).__name__ == kind, name
+            assert repr(now[name]) == text, (name, own.source_id)
 
 
 @pytest.mark.parametrize("sparse_flips", [None, 0, 10**9])  # as shipped, always full, always by segments
@@ -82,7 +87,7 @@ def test_every_field_equals_the_previous_implementation_bit_for_bit(seed, n_clas
     if sparse_flips is not None:
         monkeypatch.setattr(flips, "SPARSE_FLIPS", sparse_flips)
     matrix, rule_class = random_night(seed, n_classes)
-    assert_bit_identical(matrix, rule_class, budget)
+    assert_bit_identical(matrix, rule_class, budget, f"threshold K={n_classes} seed={seed} budget={budget}")
 
 
 @pytest.mark.parametrize("kind", ["constant", "listed"])
@@ -90,7 +95,7 @@ def test_every_field_equals_the_previous_implementation_bit_for_bit(seed, n_clas
 @pytest.mark.parametrize("seed", range(6))
 def test_the_other_classes_are_unchanged_bit_for_bit(seed, n_classes, kind):
     matrix, rule_class = random_night(seed, n_classes, kind)
-    assert_bit_identical(matrix, rule_class, None)
+    assert_bit_identical(matrix, rule_class, None, f"{kind} K={n_classes} seed={seed} budget=None")
 
 
 @pytest.mark.parametrize("n_classes", [2, 3, 4])
