@@ -25,3 +25,14 @@ def decide(intake: Intake, config, history, *args, **kwargs):
     """:func:`~truthsieve.pipeline.screen.decide_night` as (decision JSON, files, analysis)."""
     decided = decide_night(intake, config, history, *args, **kwargs)
     return decided.as_json, decided.files, decided.analysis
+
+
+def demo_nights_inbox(folder: Path):
+    """The grain demo's invented inbox in ``folder``: (inbox, dates, config), with the
+    public demo draw key (any ``TRUTHSIEVE_DRAW_KEY`` of the caller's shell removed)."""
+    import os
+
+    from truthsieve.pipeline import demo
+
+    os.environ.pop("TRUTHSIEVE_DRAW_KEY", None)
+    return folder, demo.generate_inbox(folder), demo.demo_config()

@@ -12,38 +12,12 @@ import pandas as pd
 import pytest
 
 from reference_incentives import assert_every_source_matches
+from random_nights import FEATURES, random_night
 from truthsieve.core import build_label_matrix, build_rule_class, fit_consensus, source_incentive
 
-FEATURES = ["f0", "f1", "f2"]
-
-
 def random_batch(seed: int, kind: str):
-    rng = np.random.default_rng(seed)
-    n_items = int(rng.integers(20, 200))
-    n_sources = int(rng.integers(2, 7))
-    features = {f: np.round(rng.normal(0, 1, n_items), int(rng.integers(0, 3))) for f in FEATURES}
-    items = pd.DataFrame({"item_id": [f"i{k:04d}" for k in rng.permutation(n_items)], **features})
-    if seed % 3:
-        items["item_weight"] = rng.choice([0.5, 1.0, 2.0, 3.0], n_items)
-    for r in range(int(rng.integers(1, 6))):
-        items[f"rule__r{r}"] = features["f0"] > rng.normal(0, 1)
-    truth = features["f0"] + 0.5 * features["f1"] > 0
-    rows = []
-    for s in range(n_sources):
-        coverage = 1.0 if seed % 2 else rng.uniform(0.2, 1.0)
-        covered = np.flatnonzero(rng.random(n_items) < coverage)
-        if len(covered) == 0:
-            covered = np.array([0])
-        if s == 0:
-            labels = features[FEATURES[seed % 3]] > rng.normal(0, 0.5)  # a rule-shaped liar
-        else:
-            labels = truth ^ (rng.random(n_items) < rng.uniform(0.0, 0.4))
-        rows.append(pd.DataFrame({"item_id": items["item_id"].to_numpy()[covered], "source_id": f"s{s}", "label": labels[covered].astype(int)}))
-    labels = pd.concat(rows, ignore_index=True)
-    weights = {f"s{s}": float(rng.choice([1.0, 2.0, 0.5, 3.0])) for s in range(n_sources)}
-    matrix = build_label_matrix(labels, items, weights)
-    rule_class = build_rule_class(kind, items, matrix.item_ids, FEATURES if kind == "threshold" else ())
-    return matrix, rule_class
+    """A two-class night (:func:`random_nights.random_night`)."""
+    return random_night(seed, 2, kind)
 
 
 @pytest.mark.parametrize("budget", [None, 3])

@@ -17,7 +17,7 @@ from truthsieve.pipeline import demo
 from truthsieve.pipeline.alerts import compose_alerts
 from truthsieve.pipeline.evidence import FLAG_NAMES, flag_sentence
 from truthsieve.pipeline.screen import decide_night
-from night_support import ingest_batch
+from night_support import demo_nights_inbox, ingest_batch
 
 # The default limits (pipeline/config.py RoutingPolicy), written as each sentence prints them:
 # max_disagreement 0.2 -> "20.0 %", min_balanced_accuracy 0.8 -> "80.0 %", min_kappa 0.5 -> "0.5",
@@ -37,12 +37,7 @@ LIMIT_TEXT = {
 
 @pytest.fixture(scope="module")
 def nights(tmp_path_factory):
-    import os
-
-    os.environ.pop("TRUTHSIEVE_DRAW_KEY", None)
-    inbox = tmp_path_factory.mktemp("alerts-inbox")
-    dates = demo.generate_inbox(inbox)
-    config = demo.demo_config()
+    inbox, dates, config = demo_nights_inbox(tmp_path_factory.mktemp("alerts-inbox"))
     return config, {k: decide_night(ingest_batch(inbox, dates[k - 1], config), config, {}).decision for k in (demo.ABSENT_NIGHT, demo.STRATEGIC_FROM, demo.BROKEN_NIGHT)}
 
 

@@ -6,18 +6,13 @@ from __future__ import annotations
 import pytest
 
 from truthsieve.pipeline import demo
-from night_support import decide, ingest_batch
+from night_support import decide, demo_nights_inbox, ingest_batch
 
 
 @pytest.fixture(scope="module")
 def demo_nights(tmp_path_factory):
     """Every night's decision (no history: each night alone), the strategic member's entry."""
-    import os
-
-    os.environ.pop("TRUTHSIEVE_DRAW_KEY", None)
-    inbox = tmp_path_factory.mktemp("demo-inbox")
-    dates = demo.generate_inbox(inbox)
-    config = demo.demo_config()
+    inbox, dates, config = demo_nights_inbox(tmp_path_factory.mktemp("demo-inbox"))
     return config, [decide(ingest_batch(inbox, date, config), config, {})[0] for date in dates]
 
 
