@@ -106,14 +106,17 @@ def validate_labels(
     if errors:
         return None, errors
 
-    errors += id_errors(relative_path, table.column("item_id"))
     # Ids stay in Arrow: joined by a hash join, never one Python string per row.
     ids = id_array(table.column("item_id"))
+    joined = None if item_ids is None else pc.index_in(ids, value_set=item_ids)
+    if joined is None or joined.null_count:
+        errors += id_errors(relative_path, table.column("item_id"))
+    # else every id is one of the items table's, which were checked: none is null or holds
+    # a control character, so those checks would find nothing
     labels, label_errors = decode_labels(relative_path, table.column("label"), classes)
     errors += label_errors
     codes = None
-    if item_ids is not None:
-        joined = pc.index_in(ids, value_set=item_ids)
+    if joined is not None:
         unknown = pc.and_(ids.is_valid(), joined.is_null()).to_numpy(zero_copy_only=False)
         errors += row_errors(relative_path, np.flatnonzero(unknown), "item_id", "unknown_item", "item_id is not in the items table")
         if not errors:
