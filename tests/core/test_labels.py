@@ -97,3 +97,20 @@ def test_item_codes_that_break_the_night_are_named():
         build_label_matrix([SourceCodes("lab", np.array([1]), np.array([1]))], items, {"lab": 1.0})
     with pytest.raises(UnknownReferenceError, match="ghost"):
         build_label_matrix([SourceCodes("ghost", np.array([0]), np.array([1]))], items, {"lab": 1.0})
+
+
+def test_class_indices_past_127_keep_their_value_in_the_matrix():
+    # 200 classes: an int8 matrix would wrap index 150 to -106 (common practice: int8 holds -128..127).
+    import numpy as np
+    import pandas as pd
+
+    from truthsieve.core.labels import SourceCodes, build_label_matrix
+
+    items = pd.DataFrame({"item_id": ["a", "b", "c"]})
+    codes = [SourceCodes("s", np.array([0, 1, 2]), np.array([150, 199, 3], dtype=np.int16))]
+    matrix = build_label_matrix(codes, items, {"s": 1.0}, n_classes=200)
+    assert matrix.labels.tolist() == [[150, 199, 3]]
+    long = pd.DataFrame({"item_id": ["a", "b", "c"], "source_id": "s", "label": [150, 199, 3]})
+    assert build_label_matrix(long, items, {"s": 1.0}, n_classes=200).labels.tolist() == [[150, 199, 3]]
+    two = build_label_matrix([SourceCodes("s", np.array([0, 1]), np.array([1, 0]))], items, {"s": 1.0})
+    assert two.labels.dtype == np.int8  # two classes keep one byte a cell

@@ -32,7 +32,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from truthsieve.core.ids import as_ids, id_array
-from truthsieve.core.statistics import FloatArray, SourceLabels, private_costs, source_statistics, sum_statistics
+from truthsieve.core.statistics import FloatArray, SourceLabels, label_dtype, private_costs, source_statistics, sum_statistics
 from truthsieve.exceptions import ClassIndexError, InputError, NoItemsError, NoSourcesError, UnknownReferenceError, WeightError
 
 if TYPE_CHECKING:
@@ -67,7 +67,7 @@ class LabelMatrix:
 
     :param item_ids: sorted item ids, shape ``(m,)``.
     :param source_ids: sorted source ids, length ``n``.
-    :param labels: ``(n, m)`` int8 array of class indices (0 where not labelled).
+    :param labels: ``(n, m)`` class indices, int8 (int16 past 127 classes; 0 where not labelled).
     :param labelled: ``(n, m)`` bool array, True where source ``i`` labelled item ``j``.
     :param item_weights: ``(m,)`` item weights ``u_j``.
     :param source_weights: ``(n,)`` normalised source weights (sum to 1).
@@ -259,7 +259,7 @@ def _dense_from_codes(sources: Sequence[SourceCodes], order: np.ndarray, source_
     column_of_row = np.empty(len(order), dtype=np.int64)
     column_of_row[order] = np.arange(len(order))
     shape = (len(present), len(order))
-    dense_labels, labelled = np.zeros(shape, dtype=np.int8), np.zeros(shape, dtype=bool)
+    dense_labels, labelled = np.zeros(shape, dtype=label_dtype(n_classes)), np.zeros(shape, dtype=bool)
     row_of = {source_id: i for i, source_id in enumerate(present)}
     for source in sources:
         codes = np.asarray(source.item_codes, dtype=np.int64)
@@ -268,7 +268,7 @@ def _dense_from_codes(sources: Sequence[SourceCodes], order: np.ndarray, source_
         classes = np.asarray(source.labels)
         _check_classes(classes, n_classes, f" of source {source.source_id!r}")
         row, columns = row_of[str(source.source_id)], column_of_row[codes]
-        dense_labels[row, columns] = classes.astype(np.int8)
+        dense_labels[row, columns] = classes.astype(dense_labels.dtype)
         labelled[row, columns] = True
     return present, weights, dense_labels, labelled
 
@@ -291,10 +291,10 @@ def _dense_from_long(labels: "pd.DataFrame", item_ids: np.ndarray, source_weight
     rows = rank[encoded.indices.to_numpy(zero_copy_only=False)]
 
     shape = (len(present), len(item_ids))
-    dense_labels = np.zeros(shape, dtype=np.int8)
+    dense_labels = np.zeros(shape, dtype=label_dtype(n_classes))
     labelled = np.zeros(shape, dtype=bool)
-    classes = labels["label"].to_numpy()  # no copy: 10M labels stay one int8 pass
+    classes = labels["label"].to_numpy()  # no copy: 10M labels stay one small-integer pass
     _check_classes(classes, n_classes, "")
-    dense_labels[rows, columns] = classes.astype(np.int8)
+    dense_labels[rows, columns] = classes.astype(dense_labels.dtype)
     labelled[rows, columns] = True
     return present, weights, dense_labels, labelled

@@ -145,3 +145,8 @@ def risk_is_zero(value: float) -> bool:
 # Two risks closer than this are tied; float rounding in prefix sums over a million
 # items stays orders of magnitude below it (common practice for float comparisons).
 TIE_TOLERANCE = 1e-10
+
+
+def label_dtype(n_classes: int) -> type[np.signedinteger]:
+    """The smallest integer type of class indices ``0 .. K-1``: int8 up to 127 classes, else int16."""
+    return np.int8 if n_classes <= 127 else np.int16

@@ -5,9 +5,9 @@ from __future__ import annotations
 import json
 from dataclasses import fields
 
-import numpy as np
 import pyarrow as pa
 
+from truthsieve.core.statistics import label_dtype
 from truthsieve.pipeline.analysis import BatchAnalysis
 from truthsieve.pipeline.decision import Decision, SourceEntry
 
@@ -30,5 +30,5 @@ def sources_table(analysis: BatchAnalysis, decision: Decision) -> pa.Table:
 
 
 def aggregate_table(analysis: BatchAnalysis, rule: int) -> pa.Table:
-    labels = analysis.rule_class.predict(rule).astype(np.int8)
-    return pa.table({"item_id": pa.array(analysis.matrix.item_ids.tolist(), pa.string()), "label": pa.array(labels, pa.int8())})
+    labels = analysis.rule_class.predict(rule).astype(label_dtype(analysis.rule_class.n_classes))  # int8; int16 past 127 classes
+    return pa.table({"item_id": pa.array(analysis.matrix.item_ids.tolist(), pa.string()), "label": pa.array(labels)})
