@@ -81,3 +81,10 @@ def test_cli_reports_a_duplicate_key_in_one_line_with_exit_2(tmp_path):
     result = cli("screen", "--inbox", str(inbox), "--date", "2026-11-03", "--config", str(config), "--out", str(tmp_path / "out"))
     assert result.returncode == 2 and result.stderr.count("\n") == 1 and "mechanism" in result.stderr
     assert not (tmp_path / "out").exists()
+
+
+def test_a_tab_in_the_indentation_is_named_with_the_line_it_is_on(tmp_path):
+    # the fast parser's message says only "found character that cannot start any token";
+    # the refused file is parsed again by the pure-Python one, whose message names the tab
+    message = _error(tmp_path, "mechanism: erm\nrule_class:\n\tkind: constant\n")
+    assert "not valid YAML" in message and "'\\t'" in message and "line 3" in message

@@ -275,3 +275,11 @@ def test_batch_location_of_a_local_night_is_its_folder(tmp_path):
     # an object store's pointer is not followed on a local path: the symlink already names the revision
     assert outputs.batch_location(tmp_path, DATE) == Path(tmp_path) / f"batch_date={DATE}"
     assert outputs.batch_location(str(tmp_path), DATE) == Path(tmp_path) / f"batch_date={DATE}"
+
+
+def test_a_rename_that_fails_leaves_no_temporary(tmp_path):
+    # a folder where the file should go: the rename is refused after the bytes were written
+    (tmp_path / "in_force.json").mkdir()
+    with pytest.raises(OSError):
+        write_atomic(tmp_path / "in_force.json", b"{}")
+    assert [p.name for p in tmp_path.iterdir()] == ["in_force.json"] and (tmp_path / "in_force.json").is_dir()

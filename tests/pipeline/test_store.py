@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import os
 import subprocess
 import sys
@@ -50,7 +51,7 @@ def test_a_work_area_held_in_memory_touches_no_file_until_spilled(tmp_path):
         store.spill_work(DATE)
         on_disk = store.work(DATE) / "night" / "fit.json"
         assert on_disk.read_bytes() == b"fit"
-        assert not store.work(other).exists()  # only the night asked for is written out
+        assert (store.work(other) / "night" / "fit.json").read_bytes() == b"another night"  # none is dropped
         store.write_work(DATE, "incentives/a.json", b"after")  # spilled: writes go to disk now
         assert (store.work(DATE) / "incentives" / "a.json").read_bytes() == b"after"
     assert store.read_work(DATE, "night/fit.json") == b"fit"  # outside the block: the files
@@ -178,10 +179,18 @@ def test_the_index_names_a_night_whose_decision_cannot_be_read_and_lists_the_oth
     broken = "2026-11-04"
     batch_output(out, broken).mkdir(parents=True)
     (batch_output(out, broken) / "decision.json").write_text('{"batch_date": "2026-11-04"}')  # no route, no sources
+    wrong_type, elsewhere = "2026-11-05", "2026-11-06"
+    good = json.loads((batch_output(out, DATE) / "decision.json").read_text())
+    flagged = [{**s, "pull": None, "flags": ["pulls_fit"]} for s in good["sources"]]  # pulls that cannot be compared
+    for date, data in ((wrong_type, {**good, "batch_date": wrong_type, "sources": flagged}),
+                       (elsewhere, good)):  # and another night's decision copied here
+        batch_output(out, date).mkdir(parents=True)
+        (batch_output(out, date) / "decision.json").write_text(json.dumps(data))
     page = write_index(out).read_text()
     assert f"batch_date={DATE}/report.html" in page  # the readable night is listed
-    assert f"batch_date={broken}/report.html" not in page
-    assert f"Not listed: {broken}" in page and "KeyError" in page
+    for date in (broken, wrong_type, elsewhere):
+        assert f"batch_date={date}/report.html" not in page and f"Not listed: {date}" in page, date
+    assert "KeyError" in page and "TypeError" in page and f"the decision of &#x27;{DATE}&#x27;" in page
 
 
 def test_held_work_given_as_a_function_is_made_only_when_read_or_spilled(tmp_path):
@@ -201,3 +210,14 @@ def test_held_work_given_as_a_function_is_made_only_when_read_or_spilled(tmp_pat
         assert made == ["a", "b"] and (store.work(DATE) / "sources" / "b.parquet").read_bytes() == b"b"
     store.write_work(DATE, "sources/c.parquet", table("c"))  # not held: made and written at once
     assert made == ["a", "b", "c"] and (store.work(DATE) / "sources" / "c.parquet").read_bytes() == b"c"
+
+
+def test_a_nested_hold_keeps_the_outer_blocks_work(tmp_path):
+    store = LocalStore(tmp_path / "in", tmp_path / "out", run="4.w")
+    with store.work_in_memory():
+        store.write_work(DATE, "items.json", b"outer")
+        with store.work_in_memory():  # e.g. screen_night inside a caller's own block
+            store.write_work(DATE, "night/fit.json", b"inner")
+        assert store.read_work(DATE, "items.json") == b"outer" and store.read_work(DATE, "night/fit.json") == b"inner"
+        assert not (tmp_path / "out").exists()  # still held, still in memory
+    assert store.read_work(DATE, "items.json") is None  # the outermost block ends the hold

@@ -24,15 +24,13 @@ SOURCE_ID_PATTERN = f"^{layout.SOURCE_ID_PATTERN}$"
 RESERVED_COLUMNS = ("item_id", "item_weight")
 
 
-class _UniqueKeyLoader(getattr(yaml, "CSafeLoader", yaml.SafeLoader)):  # type: ignore[misc]
-    """YAML's safe loader (libyaml's parser where PyYAML has it: a thousand-source
-    configuration parses in milliseconds, not a third of a second), except that a
-    mapping key given twice is an error, not "last wins"."""
+class _UniqueKeys:
+    """A mapping key given twice is an error, not "last wins"."""
 
     def construct_mapping(self, node, deep=False):
         seen = {}
         for key_node, _ in node.value:
-            key = self.construct_object(key_node, deep=deep)
+            key = self.construct_object(key_node, deep=deep)  # type: ignore[attr-defined]
             try:
                 earlier = seen.get(key)
             except TypeError:
@@ -42,7 +40,25 @@ class _UniqueKeyLoader(getattr(yaml, "CSafeLoader", yaml.SafeLoader)):  # type: 
                     None, None, f"key {key!r} given twice (lines {earlier} and {key_node.start_mark.line + 1})", None
                 )
             seen[key] = key_node.start_mark.line + 1
-        return super().construct_mapping(node, deep=deep)
+        return super().construct_mapping(node, deep=deep)  # type: ignore[misc]
+
+
+class _UniqueKeyLoader(_UniqueKeys, getattr(yaml, "CSafeLoader", yaml.SafeLoader)):  # type: ignore[misc]
+    """YAML's safe loader with libyaml's parser where PyYAML has it (a thousand-source
+    configuration parses in milliseconds, not a third of a second)."""
+
+
+class _UniqueKeyExplainer(_UniqueKeys, yaml.SafeLoader):
+    """The pure-Python twin, run only on a file the fast one refused: its messages quote the line."""
+
+
+def _explained(text: str, error: yaml.YAMLError) -> yaml.YAMLError:
+    """The pure-Python parser's account of ``error`` (it shows the offending text), else ``error``."""
+    try:
+        yaml.load(text, Loader=_UniqueKeyExplainer)  # noqa: S506 - a SafeLoader subclass
+    except yaml.YAMLError as explained:
+        return explained
+    return error
 
 
 def _one_line(text: str) -> str:
@@ -263,7 +279,7 @@ def load_config(path) -> Config:
     except UnicodeDecodeError as error:
         raise ConfigError(f"{path}: not UTF-8 text (byte 0x{error.object[error.start]:02x} at offset {error.start})") from error
     except yaml.YAMLError as error:
-        raise ConfigError(f"{path}: not valid YAML: {_one_line(error)}") from error
+        raise ConfigError(f"{path}: not valid YAML: {_one_line(_explained(text, error))}") from error
     if not isinstance(raw, (dict, type(None))):
         raise ConfigError(f"{path}: invalid configuration: (top level): must be a mapping of keys, not {type(raw).__name__}")
     try:

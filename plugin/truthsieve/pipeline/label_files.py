@@ -108,7 +108,7 @@ def validate_labels(
 
     # Ids stay in Arrow: joined by a hash join, never one Python string per row.
     ids = id_array(table.column("item_id"))
-    joined = None if item_ids is None else pc.index_in(ids, value_set=item_ids)
+    joined = None if item_ids is None else pc.index_in(ids, value_set=item_ids, skip_nulls=True)  # a null id is never found
     if joined is None or joined.null_count:
         errors += id_errors(relative_path, table.column("item_id"))
     # else every id is one of the items table's, which were checked: none is null or holds

@@ -75,10 +75,20 @@ def write_atomic(path: Path, data: bytes, step: str = "temporary_written", durab
                 handle.flush()
                 os.fsync(handle.fileno())
     except BaseException:  # a write that fails (disk full, file too large) leaves no partial temporary
-        temporary.unlink(missing_ok=True)
+        _discard(temporary)
         raise
-    crash_point(step)
-    os.replace(temporary, path)
+    crash_point(step)  # a simulated death leaves the temporary, as a killed process would
+    try:
+        os.replace(temporary, path)
+    except BaseException:
+        _discard(temporary)
+        raise
+
+
+def _discard(temporary: Path) -> None:
+    """Remove a temporary after a failure; the failure itself is what the caller reports."""
+    with contextlib.suppress(OSError):
+        temporary.unlink(missing_ok=True)
 
 
 def parquet_bytes(table: pa.Table) -> bytes:

@@ -25,7 +25,8 @@ from truthsieve.pipeline.layout import ITEMS_FILE, batch_dir, work_dir
 from truthsieve.pipeline.outputs import as_location, batch_location, published_dates, read_history
 
 
-#: one work file's content: its bytes, or a function that makes them
+#: one work file's content: its bytes, or a function that makes them (it must read only
+#: data that nothing changes afterwards: a held function may run at any later moment)
 Work = bytes | Callable[[], bytes]
 
 
@@ -81,25 +82,27 @@ class BatchStore:
         step (the command line), where no other process reads it. :meth:`spill_work`
         writes it out when other processes must (a pool of workers). Work given as a
         function is held as that function and made only if it is read or spilled."""
-        self._held = {}
+        previous = self._held
+        self._held = {} if previous is None else previous  # nested: the outer block's work stays held
         try:
             yield
         finally:
-            self._held = None
+            self._held = previous
 
     def spill_work(self, batch_date: str) -> None:
-        """Write the held work area of ``batch_date`` to the store and stop holding it."""
+        """Write the held work area to the store and stop holding it: ``batch_date``'s first,
+        then any other night's held work (none is dropped), in the order it was written."""
         held, self._held = self._held or {}, None
-        for (date, name), data in held.items():
-            if date == batch_date:
-                self.write_work(date, name, data)
+        for date, name in sorted(held, key=lambda key: key[0] != batch_date):  # stable: write order kept
+            data = held[(date, name)]
+            self._write_work(date, name, data() if callable(data) else data)
 
     def write_work(self, batch_date: str, name: str, data: Work) -> None:
         """Write one work file: bytes, or a function making them (called at once unless held)."""
         if self._held is not None:
             self._held[(batch_date, name)] = data
         else:
-            self._write_work(batch_date, name, data if isinstance(data, bytes) else data())
+            self._write_work(batch_date, name, data() if callable(data) else data)
 
     def _write_work(self, batch_date: str, name: str, data: bytes) -> None:
         self.write(self.work(batch_date) / name, data)
@@ -107,7 +110,7 @@ class BatchStore:
     def read_work(self, batch_date: str, name: str) -> bytes | None:
         if self._held is not None:
             data = self._held.get((batch_date, name))
-            if data is not None and not isinstance(data, bytes):
+            if callable(data):
                 data = self._held[(batch_date, name)] = data()
             return data
         path = self.work(batch_date) / name
@@ -271,8 +274,12 @@ def write_index(out):
     decisions, unreadable = [], {}
     for date in published_dates(out):
         try:  # one night's broken or foreign file must not stop the index of the others
-            decisions.append(decision_from_json(json.loads((batch_location(out, date) / "decision.json").read_text())))
-        except (OSError, ValueError, KeyError, TypeError) as error:
+            decision = decision_from_json(json.loads((batch_location(out, date) / "decision.json").read_text()))
+            if decision.batch_date != date:
+                raise ValueError(f"it is the decision of {decision.batch_date!r}")
+            render_index([decision])  # a value of the wrong type fails here, not in the whole page
+            decisions.append(decision)
+        except (OSError, ValueError, KeyError, TypeError, AttributeError) as error:
             unreadable[date] = f"{type(error).__name__}: {error}"
     entries = []
     if isinstance(out, Path):

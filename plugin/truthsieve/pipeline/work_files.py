@@ -85,7 +85,8 @@ def quarantine_blob(inbox: Path, check: FileCheck) -> bytes | None:
 
 def write_items(store, batch_date: str, check: FileCheck, quarantine: bytes | None) -> None:
     if check.valid:
-        store.write_work(batch_date, ITEMS_TABLE, lambda: parquet_bytes(pa.Table.from_pandas(check.table, preserve_index=False)))
+        frame = check.table  # this frame, whatever the check holds later
+        store.write_work(batch_date, ITEMS_TABLE, lambda: parquet_bytes(pa.Table.from_pandas(frame, preserve_index=False)))
     if quarantine is not None:
         store.write_work(batch_date, ITEMS_QUARANTINE, quarantine)
     store.write_work(batch_date, ITEMS_SUMMARY, _json(check.summary()))  # last: the marker
