@@ -17,7 +17,6 @@ import hashlib
 import json
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, replace
-from functools import cached_property
 from pathlib import Path
 
 import numpy as np
@@ -31,7 +30,7 @@ from truthsieve.exceptions import InputError
 from truthsieve.pipeline import ingest, work_files
 from truthsieve.pipeline.analysis import analyse_one_source, fit_from_totals, item_ranks, night_items, source_from_codes, source_weights
 from truthsieve.pipeline.config import Config
-from truthsieve.pipeline.decision import Decision, decision_json
+from truthsieve.pipeline.decision import Decision
 from truthsieve.pipeline.layout import ITEMS_FILE, batch_dir, source_name
 from truthsieve.pipeline.night_fit import Fit, read_fit
 from truthsieve.pipeline.records import FileCheck, Intake
@@ -189,7 +188,7 @@ class Published:
 
     typed: Decision
     output: object
-    as_json: dict | None = field(default=None, repr=False, compare=False)  # decision_json(typed) when already made
+    decision: dict = field(repr=False, compare=False)  # its decision.json form, made once by the decide step
 
     @property
     def batch_date(self) -> str:
@@ -198,11 +197,6 @@ class Published:
     @property
     def route(self) -> str:
         return self.typed.route
-
-    @cached_property
-    def decision(self) -> dict:
-        """The decision in its ``decision.json`` form."""
-        return self.as_json if self.as_json is not None else decision_json(self.typed)
 
     def summary(self) -> dict:
         """What XCom carries: route, flagged sources, where."""
