@@ -34,3 +34,42 @@ def test_a_dictator_lottery_from_known_own_rules_equals_fitting_each_source(seed
     known = {i.source_id: i.own_best_rule for i in incentives(matrix, rule_class, consensus, 8)}
     known.pop(matrix.source_ids[0])  # a source not in the mapping is fitted
     assert run_mechanism(mechanism, matrix, rule_class, consensus, None, known) == run_mechanism(mechanism, matrix, rule_class, consensus)
+
+
+def _feature_by_feature(rule_class):
+    """The same class scoring feature by feature (the stacked slots dropped): the oracle."""
+    import copy
+
+    slow = copy.copy(rule_class)
+    slow._slots = None
+    return slow
+
+
+@pytest.mark.parametrize("n_classes", [2, 3, 4])
+@pytest.mark.parametrize("seed", range(15))
+def test_stacked_cut_slots_give_the_floats_of_the_per_feature_loop(seed, n_classes):
+    import numpy as np
+
+    matrix, rule_class = random_night(seed, n_classes, "threshold")
+    assert rule_class._slots is not None
+    slow = _feature_by_feature(rule_class)
+    rng = np.random.default_rng(seed)
+    costs = rng.normal(size=(matrix.n_items, n_classes)) * rng.choice([1e-3, 1.0, 1e3], size=(matrix.n_items, 1))
+    subsets = [None, np.flatnonzero(rng.random(matrix.n_items) < 0.3), rng.permutation(matrix.n_items)[:5], np.zeros(0, dtype=np.int64)]
+    for items in subsets:
+        rows = costs if items is None else costs[items]
+        fast_risks, slow_risks = rule_class.linear_risks(rows, items), slow.linear_risks(rows, items)
+        assert fast_risks.tobytes() == slow_risks.tobytes()
+        if len(rows):
+            assert rule_class.fit_with_risk(rows, items) == slow.fit_with_risk(rows, items)
+    for source in matrix.sources:
+        costs_i = source.sparse_costs(n_classes)
+        assert rule_class.linear_risks(costs_i, source.items).tobytes() == slow.linear_risks(costs_i, source.items).tobytes()
+        assert rule_class.fit(costs_i, source.items) == slow.fit(costs_i, source.items)
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_incentives_with_stacked_slots_equal_those_scored_feature_by_feature(seed):
+    matrix, rule_class = random_night(seed, 2 + seed % 3, "threshold")
+    consensus = fit_consensus(matrix, rule_class)
+    assert incentives(matrix, rule_class, consensus, 8) == incentives(matrix, _feature_by_feature(rule_class), consensus, 8)
