@@ -73,3 +73,36 @@ def test_incentives_with_stacked_slots_equal_those_scored_feature_by_feature(see
     matrix, rule_class = random_night(seed, 2 + seed % 3, "threshold")
     consensus = fit_consensus(matrix, rule_class)
     assert incentives(matrix, rule_class, consensus, 8) == incentives(matrix, _feature_by_feature(rule_class), consensus, 8)
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_the_work_files_incentive_record_is_asdict(seed):
+    import json
+    from dataclasses import asdict
+
+    from truthsieve.core.incentives import SourceIncentive
+    from truthsieve.pipeline.work_files import incentive_record
+
+    matrix, rule_class = random_night(seed, 2 + seed % 2, "threshold")
+    for result in incentives(matrix, rule_class, fit_consensus(matrix, rule_class), 8):
+        record = incentive_record(result)
+        assert record == asdict(result) and list(record) == list(asdict(result))
+        assert json.dumps(record, sort_keys=True) == json.dumps(asdict(result), sort_keys=True)
+        assert SourceIncentive(**json.loads(json.dumps(record))) == result
+
+
+@pytest.mark.parametrize("n_classes", [2, 3, 4])
+@pytest.mark.parametrize("seed", range(10))
+def test_risks_at_chosen_rules_from_stacked_slots_are_the_full_passes_floats(seed, n_classes):
+    import numpy as np
+
+    matrix, rule_class = random_night(seed, n_classes, "threshold")
+    slow = _feature_by_feature(rule_class)
+    rng = np.random.default_rng(seed)
+    costs = rng.normal(size=(matrix.n_items, n_classes)) * rng.choice([1e-3, 1.0, 1e3], size=(matrix.n_items, 1))
+    for items in (None, np.flatnonzero(rng.random(matrix.n_items) < 0.4), np.zeros(0, dtype=np.int64)):
+        rows = costs if items is None else costs[items]
+        everything = slow.linear_risks(rows, items)
+        for rules in (rng.integers(0, rule_class.size, 40), np.arange(n_classes), np.zeros(0, dtype=np.int64)):
+            fast = rule_class.linear_risks_at(rows, items, rules)
+            assert fast.tobytes() == slow.linear_risks_at(rows, items, rules).tobytes() == everything[rules].tobytes()

@@ -190,6 +190,13 @@ class ThresholdRules(RuleClass):
         out = np.empty(len(rules))
         constant = rules < self.n_classes
         out[constant] = totals[rules[constant]]
+        if self._slots is not None:  # every feature's Δ in a few calls (_flat_deltas), read at the rules' cuts
+            chosen = np.flatnonzero(~constant)
+            if len(chosen):
+                row, pair = np.divmod(rules[chosen] - self.n_classes, len(self.pairs))
+                delta = self._flat_deltas(difference, items)[row]
+                out[chosen] = self._risks_of_pairs(totals, delta, pair)
+            return out
         block = np.searchsorted(self.offsets, rules, side="right") - 1
         for number in np.unique(block[~constant]):
             feature, chosen = self.features[number], np.flatnonzero(block == number)
@@ -200,10 +207,15 @@ class ThresholdRules(RuleClass):
                 column = np.ascontiguousarray(difference[:, b - 1])
                 sums = np.bincount(bins, weights=column, minlength=len(feature.cuts) + 1)[: len(feature.cuts)]
                 delta[:, b] = np.cumsum(sums)[cut]
-            rows, above, below = np.arange(len(chosen)), self.pairs[pair, 0], self.pairs[pair, 1]
-            alpha = np.where(above == 0, totals[0], totals[above] - delta[rows, above])
-            out[chosen] = np.where(below == 0, alpha, alpha + delta[rows, below])
+            out[chosen] = self._risks_of_pairs(totals, delta, pair)
         return out
+
+    def _risks_of_pairs(self, totals: FloatArray, delta: FloatArray, pair: IntArray) -> FloatArray:
+        """Row ``j``'s risk of pair ``pair[j]`` from its cut's ``Δ`` row (the floats of linear_risks)."""
+        rows, above, below = np.arange(len(pair)), self.pairs[pair, 0], self.pairs[pair, 1]
+        alpha = np.where(above == 0, totals[0], totals[above] - delta[rows, above])
+        result: FloatArray = np.where(below == 0, alpha, alpha + delta[rows, below])
+        return result
 
     def fit_with_risk(self, costs: FloatArray, items: IntArray | None = None) -> tuple[int, float]:
         """Exact ERM without listing the pairs: per cut the best pair is (best ``above``,
