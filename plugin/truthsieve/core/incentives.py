@@ -225,7 +225,6 @@ def analyse_source(
     gain_lower = max(0.0, disagreement - float(private[target]))
     gain_upper = gain_lower if exact else max(gain_lower, disagreement - untested_floor)
     lie_lower, lie_upper = _cheapest_lie(source, own, target, consensus_rule, global_linear)
-    global_risks = others_risks + weight * private
     return SourceIncentive(
         source_id=own.source_id,
         disagreement=disagreement,
@@ -238,7 +237,7 @@ def analyse_source(
         target_risk=float(private[target]),
         lie_weight_lower=lie_lower,
         lie_weight_upper=lie_upper,
-        damage=max(0.0, float(global_risks[target] - consensus.risk)),
+        damage=max(0.0, float(others_risks[target] + weight * private[target] - consensus.risk)),  # the global risk's float at target
         checks=checks,
         pull=max(0.0, float(others_risks[consensus_rule] - others_risks[others_rule])),
         others_rule=int(others_rule),

@@ -140,9 +140,19 @@ class MechanismSpec:
         return f"{self.name} needs the {needs}, not {kind!r} with {size} rules"
 
     def draws(
-        self, sources: Sequence[SourceLabels], rule_class: RuleClass, consensus: ConsensusFit, registry_weights: Mapping[str, float] | None
+        self,
+        sources: Sequence[SourceLabels],
+        rule_class: RuleClass,
+        consensus: ConsensusFit,
+        registry_weights: Mapping[str, float] | None,
+        own_rules: Mapping[str, int] | None = None,
     ) -> tuple[Draws, float, bool]:
-        """The lottery, tonight's guarantee, and whether the guarantee applies."""
+        """The lottery, tonight's guarantee, and whether the guarantee applies.
+
+        :param own_rules: each source's own best rule where already known (the incentive
+            analysis finds it, ``SourceIncentive.own_best_rule``: the same first minimum of
+            the same floats); :func:`own_best_rule` for the sources not in it.
+        """
         raise NotImplementedError
 
     def registry_guarantee(self, registry_weights: FloatArray) -> float:
@@ -158,7 +168,12 @@ class ConsensusMechanism(MechanismSpec):
     kind: ClassVar[MechanismKind] = "erm"
 
     def draws(
-        self, sources: Sequence[SourceLabels], rule_class: RuleClass, consensus: ConsensusFit, registry_weights: Mapping[str, float] | None
+        self,
+        sources: Sequence[SourceLabels],
+        rule_class: RuleClass,
+        consensus: ConsensusFit,
+        registry_weights: Mapping[str, float] | None,
+        own_rules: Mapping[str, int] | None = None,
     ) -> tuple[Draws, float, bool]:
         weights = np.array([s.weight for s in sources], dtype=np.float64)
         return [(None, 1.0, consensus.rule)], self.guarantee(np.zeros(0), weights), True
@@ -186,7 +201,12 @@ class DictatorLottery(MechanismSpec):
         return probabilities
 
     def draws(
-        self, sources: Sequence[SourceLabels], rule_class: RuleClass, consensus: ConsensusFit, registry_weights: Mapping[str, float] | None
+        self,
+        sources: Sequence[SourceLabels],
+        rule_class: RuleClass,
+        consensus: ConsensusFit,
+        registry_weights: Mapping[str, float] | None,
+        own_rules: Mapping[str, int] | None = None,
     ) -> tuple[Draws, float, bool]:
         weights = np.array([s.weight for s in sources], dtype=np.float64)
         total: float | None
@@ -196,7 +216,8 @@ class DictatorLottery(MechanismSpec):
             present = np.array([float(registry_weights[s.source_id]) for s in sources])
             total = float(sum(registry_weights.values()))
         probabilities = self.probabilities(present, total)
-        rules = [own_best_rule(s, rule_class) for s in sources]
+        known = own_rules or {}
+        rules = [known[s.source_id] if s.source_id in known else own_best_rule(s, rule_class) for s in sources]
         draws: Draws = [(s.source_id, float(p), int(r)) for s, p, r in zip(sources, probabilities, rules)]
         return draws, self.guarantee(probabilities, weights), shared_inputs(sources) or len(sources) == 1
 
@@ -218,7 +239,12 @@ class TwoRuleMechanism(MechanismSpec):
     rule_count: int | None = 2
 
     def draws(
-        self, sources: Sequence[SourceLabels], rule_class: RuleClass, consensus: ConsensusFit, registry_weights: Mapping[str, float] | None
+        self,
+        sources: Sequence[SourceLabels],
+        rule_class: RuleClass,
+        consensus: ConsensusFit,
+        registry_weights: Mapping[str, float] | None,
+        own_rules: Mapping[str, int] | None = None,
     ) -> tuple[Draws, float, bool]:
         p_one = self.probability_one(two_rule_vote_share(sources))
         weights = np.array([s.weight for s in sources], dtype=np.float64)

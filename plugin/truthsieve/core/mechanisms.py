@@ -228,9 +228,10 @@ def run_mechanism(
     rule_class: RuleClass,
     consensus: ConsensusFit | None = None,
     registry_weights: Mapping[str, float] | None = None,
+    own_rules: Mapping[str, int] | None = None,
 ) -> MechanismResult:
     """Run mechanism ``name`` on the whole night's matrix (see :func:`run_from_statistics`)."""
-    return run_from_statistics(name, matrix.global_costs(), matrix.sources, rule_class, consensus, registry_weights)
+    return run_from_statistics(name, matrix.global_costs(), matrix.sources, rule_class, consensus, registry_weights, own_rules)
 
 
 def run_from_statistics(
@@ -240,6 +241,7 @@ def run_from_statistics(
     rule_class: RuleClass,
     consensus: ConsensusFit | None = None,
     registry_weights: Mapping[str, float] | None = None,
+    own_rules: Mapping[str, int] | None = None,
 ) -> MechanismResult:
     """Run mechanism ``name`` (its :data:`MECHANISM_REGISTRY` entry) and return its exact
     lottery, expected risk and ratio.
@@ -249,12 +251,14 @@ def run_from_statistics(
     :param registry_weights: registry weight of every *registered* source (present or
         not); ``tuned_dictator`` fixes its odds from them. None: the sources present are
         the whole registry.
+    :param own_rules: source id -> its own best rule where already known (the incentive
+        analysis's ``own_best_rule``); a dictator lottery fits only the sources not in it.
     :raises MechanismError: unknown name, or a class the mechanism does not accept.
     """
     spec = check_applies(name, rule_class)
     consensus = consensus or fit_from_totals(totals, rule_class)
     rule_risks = rule_class.risks(totals)
-    draws, guarantee, applies = spec.draws(sources, rule_class, consensus, registry_weights)
+    draws, guarantee, applies = spec.draws(sources, rule_class, consensus, registry_weights, own_rules)
     lottery = tuple(LotteryEntry(s, p, r, float(rule_risks[r])) for s, p, r in draws)
     expected = float(sum(e.probability * e.risk for e in lottery))
     return MechanismResult(

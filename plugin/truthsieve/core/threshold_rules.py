@@ -37,6 +37,11 @@ class _SortedFeature:
     bins: npt.NDArray[np.int32]  # per item (item order): how many cuts lie below its value
 
 
+STACKED_SLOTS = 1 << 21
+"""The class keeps every item's cut slot of every feature in one ``(d, m)`` array when
+``d m`` is at most this (16 MiB); a larger class scores feature by feature."""
+
+
 def ordered_pairs(n_classes: int) -> IntArray:
     """``(above, below)`` with ``above != below``, lexicographic: shape ``(K (K-1), 2)``."""
     return np.array([(a, b) for a in range(n_classes) for b in range(n_classes) if a != b], dtype=np.int64)
@@ -82,12 +87,32 @@ class ThresholdRules(RuleClass):
         per_cut = len(self.pairs)
         self.offsets = np.cumsum([n_classes] + [per_cut * len(f.cuts) for f in self.features])
         self.size = int(self.offsets[-1])
+        # Feature f's cut bin k is slot slot_starts[f] + k (one slot past its cuts); its
+        # cuts are rows cut_starts[f] .. of the stacked Δ (see _flat_deltas).
+        counts = [len(f.cuts) for f in self.features]
+        self._slot_starts = np.cumsum([0] + [c + 1 for c in counts])
+        self._cut_starts = np.cumsum([0] + counts)
+        self._slots: IntArray | None = None
+        if len(self.features) * self.n_items <= STACKED_SLOTS:
+            self._slots = np.stack([f.bins.astype(np.intp) + s for f, s in zip(self.features, self._slot_starts)])
 
     def _deltas(self, costs: FloatArray, items: IntArray | None) -> tuple[FloatArray, list[FloatArray]]:
         """``T`` and, per feature, ``Δ`` of shape ``(cuts, K)`` (``Δ[:, 0] = 0``)."""
+        totals, blocks = self._delta_blocks(costs, items)
+        if len(blocks) == 1 and len(self.features) > 1:
+            flat = blocks[0][0]
+            return totals, [flat[a:b] for a, b in zip(self._cut_starts[:-1], self._cut_starts[1:])]
+        return totals, [delta for delta, _, _ in blocks]
+
+    def _delta_blocks(self, costs: FloatArray, items: IntArray | None) -> tuple[FloatArray, list[tuple[FloatArray, int, int]]]:
+        """``T`` and blocks ``(Δ, start, stop)``: rules ``start .. stop`` are Δ's cuts times
+        the pairs, cut-major. One block of every feature's cuts when the class keeps the
+        stacked slots (the same floats, a few NumPy calls instead of several per feature)."""
         costs = np.asarray(costs, dtype=np.float64)
         totals = class_totals(costs)
         difference = costs[:, 1:] - costs[:, :1]
+        if self._slots is not None:
+            return totals, [(self._flat_deltas(difference, items), self.n_classes, self.size)]
         deltas = []
         for feature in self.features:
             n_cuts = len(feature.cuts)
@@ -97,7 +122,27 @@ class ThresholdRules(RuleClass):
                 column = np.ascontiguousarray(difference[:, b - 1])
                 delta[:, b] = np.cumsum(np.bincount(bins, weights=column, minlength=n_cuts + 1)[:n_cuts])
             deltas.append(delta)
-        return totals, deltas
+        return totals, [(d, int(a), int(b)) for d, a, b in zip(deltas, self.offsets[:-1], self.offsets[1:])]
+
+    def _flat_deltas(self, difference: FloatArray, items: IntArray | None) -> FloatArray:
+        """Every feature's ``Δ`` stacked, ``(total cuts, K)``: the floats of the per-feature
+        loop. One ``bincount`` per class over all features' slots adds each bin's items in
+        item order from 0.0, as a feature's own ``bincount`` does (no other feature shares
+        its slots); each feature's prefix sum then runs from 0.0 (``np.add.accumulate``, what
+        ``np.cumsum`` calls)."""
+        assert self._slots is not None
+        slots = (self._slots if items is None else np.take(self._slots, items, axis=1)).ravel()
+        n_slots, n_features = int(self._slot_starts[-1]), len(self.features)
+        starts = list(zip(self._slot_starts[:-1].tolist(), self._cut_starts[:-1].tolist(), self._cut_starts[1:].tolist()))
+        prefix = np.empty((self.n_classes - 1, int(self._cut_starts[-1])))  # row b - 1: Δ(b)
+        for b in range(1, self.n_classes):
+            weights = np.broadcast_to(difference[:, b - 1], (n_features, len(difference))).ravel()
+            sums = np.bincount(slots, weights=weights, minlength=n_slots)
+            for slot, low, high in starts:
+                np.add.accumulate(sums[slot : slot + high - low], out=prefix[b - 1, low:high])
+        delta = np.zeros((prefix.shape[1], self.n_classes))
+        delta[:, 1:] = prefix.T
+        return delta
 
     def _parts(
         self, costs: FloatArray, items: IntArray | None
@@ -121,10 +166,10 @@ class ThresholdRules(RuleClass):
         return out
 
     def linear_risks(self, costs: FloatArray, items: IntArray | None = None) -> FloatArray:
-        totals, deltas = self._deltas(costs, items)
+        totals, blocks = self._delta_blocks(costs, items)
         out = np.empty(self.size)
         out[: self.n_classes] = totals
-        for delta, start, stop in zip(deltas, self.offsets[:-1], self.offsets[1:]):
+        for delta, start, stop in blocks:
             # The floats of _pair_risks(α, Δ, ...), written in place pair by pair: α(a) is
             # T(0) for a = 0, else T(a) - Δ(a); the pair adds Δ(b) unless b = 0.
             block = out[start:stop].reshape(len(delta), len(self.pairs))
@@ -145,6 +190,13 @@ class ThresholdRules(RuleClass):
         out = np.empty(len(rules))
         constant = rules < self.n_classes
         out[constant] = totals[rules[constant]]
+        if self._slots is not None:  # every feature's Δ in a few calls (_flat_deltas), read at the rules' cuts
+            chosen = np.flatnonzero(~constant)
+            if len(chosen):
+                row, pair = np.divmod(rules[chosen] - self.n_classes, len(self.pairs))
+                delta = self._flat_deltas(difference, items)[row]
+                out[chosen] = self._risks_of_pairs(totals, delta, pair)
+            return out
         block = np.searchsorted(self.offsets, rules, side="right") - 1
         for number in np.unique(block[~constant]):
             feature, chosen = self.features[number], np.flatnonzero(block == number)
@@ -155,10 +207,15 @@ class ThresholdRules(RuleClass):
                 column = np.ascontiguousarray(difference[:, b - 1])
                 sums = np.bincount(bins, weights=column, minlength=len(feature.cuts) + 1)[: len(feature.cuts)]
                 delta[:, b] = np.cumsum(sums)[cut]
-            rows, above, below = np.arange(len(chosen)), self.pairs[pair, 0], self.pairs[pair, 1]
-            alpha = np.where(above == 0, totals[0], totals[above] - delta[rows, above])
-            out[chosen] = np.where(below == 0, alpha, alpha + delta[rows, below])
+            out[chosen] = self._risks_of_pairs(totals, delta, pair)
         return out
+
+    def _risks_of_pairs(self, totals: FloatArray, delta: FloatArray, pair: IntArray) -> FloatArray:
+        """Row ``j``'s risk of pair ``pair[j]`` from its cut's ``Δ`` row (the floats of linear_risks)."""
+        rows, above, below = np.arange(len(pair)), self.pairs[pair, 0], self.pairs[pair, 1]
+        alpha = np.where(above == 0, totals[0], totals[above] - delta[rows, above])
+        result: FloatArray = np.where(below == 0, alpha, alpha + delta[rows, below])
+        return result
 
     def fit_with_risk(self, costs: FloatArray, items: IntArray | None = None) -> tuple[int, float]:
         """Exact ERM without listing the pairs: per cut the best pair is (best ``above``,

@@ -201,7 +201,8 @@ def analyse_batch(
         shared = incentive_context(matrix, rule_class)
         incentives = [source_incentive(matrix, rule_class, consensus, i, budget, shared) for i in range(matrix.n_sources)]
     registry_weights = {s.source_id: s.weight for s in config.sources}
-    mechanism = run_mechanism(config.mechanism, matrix, rule_class, consensus, registry_weights)
+    own_rules = {i.source_id: i.own_best_rule for i in incentives}  # the dictators' rules, found already
+    mechanism = run_mechanism(config.mechanism, matrix, rule_class, consensus, registry_weights, own_rules)
     reliability = dawid_skene(
         matrix.labels,
         matrix.labelled,

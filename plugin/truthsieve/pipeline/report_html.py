@@ -114,11 +114,13 @@ def table(headers: Sequence[str], rows: Sequence[Sequence[str]], text_columns: S
     """A table inside a horizontally scrolling box: at any width it wraps or scrolls, never clips."""
     head = "".join(f"<th>{e(h)}</th>" for h in headers)
 
-    def cell(k, c):
+    def opening(k):
         classes = " ".join(name for name, on in (("t", k in text_columns), ("nowrap", k in nowrap)) if on)
-        return f"<td class='{classes}'>{c}</td>" if classes else f"<td>{c}</td>"
+        return f"<td class='{classes}'>" if classes else "<td>"
 
-    body = "".join("<tr>" + "".join(cell(k, c) for k, c in enumerate(row)) + "</tr>" for row in rows)
+    rows = list(rows)
+    openings = [opening(k) for k in range(max((len(row) for row in rows), default=0))]  # each column's tag, once
+    body = "".join("<tr>" + "".join([f"{o}{c}</td>" for o, c in zip(openings, row)]) + "</tr>" for row in rows)
     return f"<div class='scroll'><table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table></div>"
 
 

@@ -27,7 +27,7 @@ from __future__ import annotations
 
 import io
 import json
-from dataclasses import asdict
+from dataclasses import fields
 from pathlib import Path
 
 import numpy as np
@@ -202,8 +202,17 @@ def read_night_fit(store, batch_date: str) -> tuple[np.ndarray, np.ndarray, dict
     return arrays[0], arrays[1], json.loads(fit)
 
 
+_INCENTIVE_FIELDS = tuple(f.name for f in fields(SourceIncentive))
+
+
+def incentive_record(result: SourceIncentive) -> dict:
+    """The incentive's fields as a dict: ``dataclasses.asdict`` without its deep copy (every
+    field is a scalar, which a deep copy returns as is)."""
+    return {name: getattr(result, name) for name in _INCENTIVE_FIELDS}
+
+
 def write_incentive(store, batch_date: str, result: SourceIncentive) -> None:
-    store.write_work(batch_date, incentive_file(result.source_id), _json(asdict(result)))
+    store.write_work(batch_date, incentive_file(result.source_id), _json(incentive_record(result)))
 
 
 def read_incentives(store, batch_date: str, source_ids) -> list[SourceIncentive]:
