@@ -33,6 +33,7 @@ from truthsieve.pipeline.store import LocalStore
 DATE = "2026-12-02"
 BATCH = f"batch_date={DATE}"
 GRADES = ClassAlphabet(("reject", "feed", "premium"))
+UNDECODABLE = os.fsdecode(b"bad-\xff")  # a name that is not UTF-8: held as a surrogate escape
 
 
 # ---- the straight computation (ingest before the batched path) ------------------------------
@@ -337,3 +338,35 @@ def test_a_resolved_file_is_never_read_through_a_link(tmp_path):
     with pytest.raises(OSError):
         layout.read_real(str(tmp_path / "swapped"))
     assert layout.read_real(str(secret)) == b"not yours"
+
+
+def test_relative_names_are_relative_to_as_posix(tmp_path):
+    for root in (tmp_path / "inbox", Path("inbox"), Path("/"), Path(".")):
+        for tail in ("a", "a/b.parquet", "a/../b", f"{BATCH}/source_id=x/{UNDECODABLE}.parquet"):
+            path = root / tail
+            assert layout.relative(path, root) == layout.display(path.relative_to(root).as_posix())
+    with pytest.raises(ValueError):
+        layout.relative(tmp_path / "elsewhere" / "a", tmp_path / "inbox")
+
+
+def test_the_records_flat_dicts_are_asdicts():
+    from dataclasses import asdict
+
+    record = InputFile("a/b.parquet", "0" * 64, 3, "lab", True)
+    note = layout.Note("stray_file", "a/x.txt", layout.NOTE_CODES["stray_file"])
+    assert record.as_dict() == asdict(record) and list(record.as_dict()) == list(asdict(record))
+    assert note.as_dict() == asdict(note) and list(note.as_dict()) == list(asdict(note))
+
+
+@pytest.mark.parametrize("limit", [0, 1 << 40])  # every file read as large, or as small
+def test_a_file_reads_the_same_on_one_thread_or_several(monkeypatch, limit):
+    from truthsieve.pipeline import records
+
+    rng = np.random.default_rng(2)
+    table = pa.table({"item_id": [f"i{k}" for k in range(5000)], "label": pa.array(rng.random(5000) < 0.5)})
+    sink = pa.BufferOutputStream()
+    pq.write_table(table, sink, row_group_size=700)
+    data = sink.getvalue().to_pybytes()
+    monkeypatch.setattr(records, "SMALL_FILE_BYTES", limit)
+    read, error = parse("f.parquet", data)
+    assert error is None and read.equals(table)

@@ -156,8 +156,9 @@ def checked_labels(
         errors += label_errors
     codes = None
     if joined is not None:
-        unknown = pc.and_(ids.is_valid(), joined.is_null()).to_numpy(zero_copy_only=False)
-        errors += row_errors(relative_path, np.flatnonzero(unknown), "item_id", "unknown_item", "item_id is not in the items table")
+        if joined.null_count:  # else every id was found
+            unknown = pc.and_(ids.is_valid(), joined.is_null()).to_numpy(zero_copy_only=False)
+            errors += row_errors(relative_path, np.flatnonzero(unknown), "item_id", "unknown_item", "item_id is not in the items table")
         if not errors:
             codes = joined.to_numpy(zero_copy_only=False)
     if errors:

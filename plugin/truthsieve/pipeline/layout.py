@@ -30,7 +30,7 @@ from __future__ import annotations
 
 import hashlib
 import os
-from dataclasses import asdict, dataclass, field
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from truthsieve.exceptions import InputError
@@ -67,7 +67,7 @@ class Note:
     message: str
 
     def as_dict(self) -> dict:
-        return asdict(self)
+        return {"code": self.code, "path": self.path, "message": self.message}  # asdict, without its deep copy
 
 
 def batch_name(batch_date: str) -> str:
@@ -138,6 +138,10 @@ def read_real(real: str) -> bytes:
 
 
 def relative(path: Path, inbox: Path) -> str:
+    """``path`` relative to the inbox, POSIX separators, printable (:func:`display`)."""
+    text, root = str(path), str(inbox)
+    if os.sep == "/" and root not in ("", ".") and text.startswith(root.rstrip("/") + "/"):
+        return display(text[len(root.rstrip("/")) + 1:])  # what relative_to gives, without parsing the parts
     return display(path.relative_to(inbox).as_posix())
 
 
