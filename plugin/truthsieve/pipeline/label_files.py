@@ -112,8 +112,10 @@ def fast_labels(column: pa.ChunkedArray, classes: ClassAlphabet) -> np.ndarray |
     kind = column.type
     if column.null_count or not (pa.types.is_int8(kind) or (pa.types.is_boolean(kind) and classes.count == 2)):
         return None
-    values = (pc.cast(column, pa.int8()) if pa.types.is_boolean(kind) else column).to_numpy()
-    if len(values) and (values.min() < 0 or values.max() >= classes.count):
+    values = column.to_numpy()  # NumPy bool (False = 0, True = 1: always a class when K = 2) or int8
+    if values.dtype == np.bool_:
+        values = values.view(np.int8)
+    elif len(values) and (values.min() < 0 or values.max() >= classes.count):
         return None
     return values.astype(classes.index_type)  # a copy, writable, as decode_labels gives
 
