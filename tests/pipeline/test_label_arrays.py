@@ -169,7 +169,8 @@ def test_without_a_valid_items_table_a_source_keeps_its_item_ids_through_the_wor
 
 def test_no_module_of_the_command_lines_screening_path_imports_pandas():
     modules = ["truthsieve.pipeline.cli", "truthsieve.pipeline.night", "truthsieve.pipeline.screen", "truthsieve.pipeline.ingest",
-               "truthsieve.pipeline.label_files", "truthsieve.pipeline.records", "truthsieve.pipeline.work_files",
+               "truthsieve.pipeline.label_files", "truthsieve.pipeline.source_files", "truthsieve.pipeline.night_inputs",
+               "truthsieve.pipeline.records", "truthsieve.pipeline.work_files",
                "truthsieve.pipeline.analysis", "truthsieve.core.labels", "truthsieve.core.rules", "truthsieve.core.threshold_rules"]
     code = f"import importlib, sys\nfor m in {modules!r}: importlib.import_module(m)\nprint('pandas' in sys.modules)"
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)

@@ -23,25 +23,23 @@ and so are the squares in the effective sample size ``(sum u)^2 / sum u^2``.
 
 from __future__ import annotations
 
-import re
-from collections.abc import Iterable, Mapping
+from collections.abc import Iterable
 from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
 import pyarrow as pa
 
-from truthsieve.core.ids import id_array
 from truthsieve.core.rules import RULE_COLUMN_PREFIX
 from truthsieve.pipeline import layout
 from truthsieve.pipeline.classes import BINARY, ClassAlphabet, decode_rule_column
-from truthsieve.pipeline.label_files import duplicate_errors, id_errors, is_string, validate_labels
-from truthsieve.pipeline.layout import ITEMS_FILE, display, inside, relative, sha256
+from truthsieve.pipeline.label_files import id_errors, is_string
+from truthsieve.pipeline.layout import ITEMS_FILE, inside, relative, sha256
 from truthsieve.pipeline.records import ErrorRecord, FileCheck, InputFile, parse, quarantine_bytes, row_errors
+from truthsieve.pipeline.source_files import validate_source, validate_sources
 
-__all__ = ["ErrorRecord", "FileCheck", "InputFile", "quarantine_bytes", "validate_items", "validate_source", "source_folders", "batch_folder"]
+__all__ = ["ErrorRecord", "FileCheck", "InputFile", "quarantine_bytes", "validate_items", "validate_source", "validate_sources", "source_folders", "batch_folder"]
 
-SOURCE_ID_RE = re.compile(layout.SOURCE_ID_PATTERN)
 FEATURE_LIMIT = 1e300
 ITEM_WEIGHT_MIN, ITEM_WEIGHT_MAX = 1e-150, 1e150
 
@@ -179,82 +177,3 @@ def source_folders(inbox: str | Path, batch_date: str) -> list[Path]:
     included: :func:`validate_source` records their refusal)."""
     return layout.scan_batch(inbox, batch_date).sources
 
-
-def validate_source(
-    inbox: str | Path,
-    folder: str | Path,
-    registry: Mapping[str, object],
-    item_ids: pa.Array | None,
-    item_weights: np.ndarray | None = None,
-    classes: ClassAlphabet = BINARY,
-) -> FileCheck:
-    """Validate every Parquet file of one source folder.
-
-    A source is valid only when all its files are; its labels are returned as arrays
-    (:class:`~truthsieve.pipeline.records.FileCheck`: class indices, int8 or int16 when K >
-    127, decoded as ``classes`` allows (:mod:`truthsieve.pipeline.classes`), and each
-    label's position in the items table, or its item id when ``item_ids`` is None). An item
-    labelled twice, in one file or across two, is a ``duplicate_label`` naming both places.
-
-    :param item_ids: the items table's ids (any form :func:`~truthsieve.core.ids.id_array`
-        takes; pass an Arrow array to avoid converting it per source).
-    :param item_weights: the items' weights aligned with ``item_ids``; when given, a
-        source whose labelled items all weigh 0 is an error (``no_positive_weight``).
-    :param classes: the configuration's class alphabet (``config.class_alphabet``).
-    """
-    inbox, folder = Path(inbox), Path(folder)
-    item_ids = None if item_ids is None else id_array(item_ids)
-    source_id = display(folder.name.removeprefix(layout.SOURCE_PREFIX))
-    folder_name = relative(folder, inbox)
-    check = FileCheck(source_id=source_id)
-    if not inside(folder, inbox):
-        check.errors.append(ErrorRecord(folder_name, None, None, "link_outside_inbox", "the source folder is a link whose target lies outside the inbox; not read"))
-        return check
-    entries = layout.scan_source(inbox, folder)
-    check.notes += entries.notes
-    for path, code in entries.refused:
-        check.errors.append(ErrorRecord(relative(path, inbox), None, None, code, layout.NOTE_CODES[code]))
-    contents = []
-    for path in entries.label_files:
-        name, data = check._read(path, inbox)
-        if data is not None:
-            contents.append((name, data))
-            check.inputs.append(InputFile(name, sha256(data), None, source_id, False))
-    if not SOURCE_ID_RE.fullmatch(source_id):
-        check.errors.append(ErrorRecord(folder_name, None, "source_id", "bad_source_id", f"source id must match {layout.SOURCE_ID_PATTERN}"))
-        return check
-    if source_id not in registry:
-        check.errors.append(ErrorRecord(folder_name, None, "source_id", "unknown_source", f"source {source_id} is not in the registry"))
-        return check
-    if not entries.label_files and not entries.refused:
-        check.errors.append(ErrorRecord(folder_name, None, None, "no_label_files", "the source folder holds no .parquet file"))
-        return check
-
-    files, places = [], []
-    for index, (name, data) in enumerate(contents):
-        table, error = parse(name, data)
-        if table is not None:
-            check.inputs[index] = replace(check.inputs[index], rows=table.num_rows)
-        if error:
-            check.errors.append(error)
-            continue
-        found, errors = validate_labels(name, table, item_ids, classes)
-        check.errors += errors
-        if found is not None:
-            files.append(found)
-            places.append(name)
-    if files:
-        check.errors += duplicate_errors(files, places)
-    codes = np.concatenate([f.codes for f in files]) if files and item_ids is not None else None
-    if not check.errors and item_weights is not None:
-        if not item_weights[codes].sum() > 0:
-            check.errors.append(ErrorRecord(folder_name, None, "item_weight", "no_positive_weight", "every item this source labelled has item_weight 0"))
-    if not check.errors:
-        check.labels = np.concatenate([f.labels for f in files])
-        if item_ids is None:
-            check.item_ids = pa.chunked_array([f.ids for f in files], pa.string()).combine_chunks()
-        else:
-            check.item_codes, check.id_table = codes, item_ids
-        check.inputs = [replace(f, valid=True) for f in check.inputs]
-        check.contents.clear()
-    return check

@@ -78,6 +78,48 @@ def duplicate_errors(files: list[FileLabels], places: list[str]) -> list[ErrorRe
     return errors
 
 
+def schema_errors(relative_path: str, schema: pa.Schema, classes: ClassAlphabet = BINARY) -> list[ErrorRecord]:
+    """The file-level records of a label file's columns (missing, extra, wrong type)."""
+    errors: list[ErrorRecord] = []
+    for name in LABEL_COLUMNS:
+        if name not in schema.names:
+            errors.append(ErrorRecord(relative_path, None, name, "missing_column", f"required column {name} is missing"))
+    for name in schema.names:
+        if name not in LABEL_COLUMNS:
+            errors.append(ErrorRecord(relative_path, None, name, "extra_column", f"unexpected column {name}; label files hold item_id and label only"))
+    if "item_id" in schema.names and not is_string(schema.field("item_id").type):
+        errors.append(ErrorRecord(relative_path, None, "item_id", "wrong_type", f"item_id must be string, not {schema.field('item_id').type}"))
+    if "label" in schema.names:
+        wrong = label_type_error(relative_path, schema.field("label").type, classes)
+        errors += [wrong] if wrong else []
+    return errors
+
+
+def join_ids(ids: list[pa.Array], item_ids: pa.Array) -> list[pa.Array]:
+    """Each array's rows as positions in ``item_ids`` (null where not found; a null id is
+    never found), by one hash join over all of them: the items' hash table is built once."""
+    if len(ids) == 1:
+        return [pc.index_in(ids[0], value_set=item_ids, skip_nulls=True)]
+    joined = pc.index_in(pa.chunked_array(ids, pa.string()), value_set=item_ids, skip_nulls=True).combine_chunks()
+    starts = np.cumsum([0] + [len(a) for a in ids])
+    return [joined.slice(int(starts[k]), len(ids[k])) for k in range(len(ids))]
+
+
+def fast_labels(column: pa.ChunkedArray, classes: ClassAlphabet) -> np.ndarray | None:
+    """The class indices of a label column without nulls that holds bool (K = 2) or int8
+    indices all in ``0..K-1``, as :func:`decode_labels` gives them; None for anything else
+    (then ``decode_labels`` decides, and writes the records)."""
+    kind = column.type
+    if column.null_count or not (pa.types.is_int8(kind) or (pa.types.is_boolean(kind) and classes.count == 2)):
+        return None
+    values = column.to_numpy()  # NumPy bool (False = 0, True = 1: always a class when K = 2) or int8
+    if values.dtype == np.bool_:
+        values = values.view(np.int8)
+    elif len(values) and (values.min() < 0 or values.max() >= classes.count):
+        return None
+    return values.astype(classes.index_type)  # a copy, writable, as decode_labels gives
+
+
 def validate_labels(
     relative_path: str, table: pa.Table, item_ids: pa.Array | None, classes: ClassAlphabet = BINARY
 ) -> tuple[FileLabels | None, list[ErrorRecord]]:
@@ -90,35 +132,35 @@ def validate_labels(
     (indices, names or bool as ``classes`` allows); with the binary default the records are
     those of the two-class checks (``label must be 0 or 1``).
     """
-    errors: list[ErrorRecord] = []
-    schema = table.schema
-    for name in LABEL_COLUMNS:
-        if name not in schema.names:
-            errors.append(ErrorRecord(relative_path, None, name, "missing_column", f"required column {name} is missing"))
-    for name in schema.names:
-        if name not in LABEL_COLUMNS:
-            errors.append(ErrorRecord(relative_path, None, name, "extra_column", f"unexpected column {name}; label files hold item_id and label only"))
-    if "item_id" in schema.names and not is_string(schema.field("item_id").type):
-        errors.append(ErrorRecord(relative_path, None, "item_id", "wrong_type", f"item_id must be string, not {schema.field('item_id').type}"))
-    if "label" in schema.names:
-        wrong = label_type_error(relative_path, schema.field("label").type, classes)
-        errors += [wrong] if wrong else []
+    errors = schema_errors(relative_path, table.schema, classes)
     if errors:
         return None, errors
-
-    # Ids stay in Arrow: joined by a hash join, never one Python string per row.
     ids = id_array(table.column("item_id"))
-    joined = None if item_ids is None else pc.index_in(ids, value_set=item_ids, skip_nulls=True)  # a null id is never found
+    joined = None if item_ids is None else join_ids([ids], item_ids)[0]
+    return checked_labels(relative_path, table, ids, joined, classes)
+
+
+def checked_labels(
+    relative_path: str, table: pa.Table, ids: pa.Array, joined: pa.Array | None, classes: ClassAlphabet = BINARY
+) -> tuple[FileLabels | None, list[ErrorRecord]]:
+    """:func:`validate_labels` after the schema checks and the join: ``ids`` are the file's
+    item ids (:func:`~truthsieve.core.ids.id_array`), ``joined`` their positions in the
+    items table (:func:`join_ids`; None without a valid items table)."""
+    errors: list[ErrorRecord] = []
+    # Ids stay in Arrow: joined by a hash join, never one Python string per row.
     if joined is None or joined.null_count:
         errors += id_errors(relative_path, table.column("item_id"))
     # else every id is one of the items table's, which were checked: none is null or holds
     # a control character, so those checks would find nothing
-    labels, label_errors = decode_labels(relative_path, table.column("label"), classes)
-    errors += label_errors
+    labels = fast_labels(table.column("label"), classes)
+    if labels is None:
+        labels, label_errors = decode_labels(relative_path, table.column("label"), classes)
+        errors += label_errors
     codes = None
     if joined is not None:
-        unknown = pc.and_(ids.is_valid(), joined.is_null()).to_numpy(zero_copy_only=False)
-        errors += row_errors(relative_path, np.flatnonzero(unknown), "item_id", "unknown_item", "item_id is not in the items table")
+        if joined.null_count:  # else every id was found
+            unknown = pc.and_(ids.is_valid(), joined.is_null()).to_numpy(zero_copy_only=False)
+            errors += row_errors(relative_path, np.flatnonzero(unknown), "item_id", "unknown_item", "item_id is not in the items table")
         if not errors:
             codes = joined.to_numpy(zero_copy_only=False)
     if errors:

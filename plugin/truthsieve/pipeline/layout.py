@@ -30,7 +30,7 @@ from __future__ import annotations
 
 import hashlib
 import os
-from dataclasses import asdict, dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from truthsieve.exceptions import InputError
@@ -67,7 +67,7 @@ class Note:
     message: str
 
     def as_dict(self) -> dict:
-        return asdict(self)
+        return {"code": self.code, "path": self.path, "message": self.message}  # asdict, without its deep copy
 
 
 def batch_name(batch_date: str) -> str:
@@ -109,12 +109,39 @@ def decodable(name: str) -> bool:
 def inside(path: Path, root: Path) -> bool:
     """True when ``path``'s real location (every link resolved) lies inside ``root``'s."""
     try:
-        return Path(os.path.realpath(path)).is_relative_to(Path(os.path.realpath(root)))
+        return within(os.path.realpath(path), os.path.realpath(root))
     except (OSError, ValueError):
         return False
 
 
+def within(real: str, real_root: str) -> bool:
+    """True when the resolved path ``real`` is ``real_root`` or lies under it (both from
+    ``os.path.realpath``: absolute, normalised, no link left), component by component."""
+    return real == real_root or real.startswith(real_root if real_root.endswith(os.sep) else real_root + os.sep)
+
+
+def real_child(path: Path, real_parent: str) -> str:
+    """The real path of ``path`` given its parent's real path: that parent joined with the
+    name when ``path`` is no link (one ``lstat``), else every link resolved."""
+    name = path.name
+    if name in ("", ".", "..") or os.path.islink(path):
+        return os.path.realpath(path)
+    return os.path.join(real_parent, name)
+
+
+def read_real(real: str) -> bytes:
+    """The bytes at a resolved path (checked inside the inbox by the caller), never through
+    a link: a last component that became a link since it was resolved is not followed."""
+    fd = os.open(real, os.O_RDONLY | getattr(os, "O_NOFOLLOW", 0) | getattr(os, "O_CLOEXEC", 0))
+    with open(fd, "rb", closefd=True) as stream:
+        return stream.read()
+
+
 def relative(path: Path, inbox: Path) -> str:
+    """``path`` relative to the inbox, POSIX separators, printable (:func:`display`)."""
+    text, root = str(path), str(inbox)
+    if os.sep == "/" and root not in ("", ".") and text.startswith(root.rstrip("/") + "/"):
+        return display(text[len(root.rstrip("/")) + 1:])  # what relative_to gives, without parsing the parts
     return display(path.relative_to(inbox).as_posix())
 
 
@@ -123,9 +150,10 @@ def read_inside(path: Path, inbox: Path) -> bytes:
 
     :raises PermissionError: the resolved path leaves the inbox (nothing is opened).
     """
-    if not inside(path, inbox):
+    real = os.path.realpath(path)
+    if not within(real, os.path.realpath(inbox)):
         raise PermissionError(f"{relative(path, inbox)} leaves the inbox")
-    return Path(os.path.realpath(path)).read_bytes()
+    return read_real(real)
 
 
 def sha256(data: bytes) -> str:
@@ -196,23 +224,35 @@ class SourceEntries:
     label_files: list[Path]
     refused: list[tuple[Path, str]]  # (entry, code): entries that make the source invalid
     notes: list[Note]
+    #: each label file's real path (inside the inbox), read with :func:`read_real`
+    real_files: list[str] = field(default_factory=list, compare=False)
 
 
-def scan_source(inbox: Path, folder: Path) -> SourceEntries:
-    """Sort one source folder's entries (the folder itself is known to be inside the inbox)."""
-    files, refused, notes = [], [], []
+def scan_source(inbox: Path, folder: Path, real_folder: str | None = None, real_inbox: str | None = None) -> SourceEntries:
+    """Sort one source folder's entries (the folder itself is known to be inside the inbox).
+
+    :param real_folder, real_inbox: the folder's and the inbox's real paths when the
+        caller has them (resolved here otherwise): a label file that is no link is then
+        placed without resolving its path again; a link is resolved whole.
+    """
+    real_folder = os.path.realpath(folder) if real_folder is None else real_folder
+    real_inbox = os.path.realpath(inbox) if real_inbox is None else real_inbox
+    files, reals, refused, notes = [], [], [], []
     for entry in sorted(os.scandir(folder), key=lambda e: e.name):
         path, name = Path(entry.path), entry.name
         suffix = os.path.splitext(name)[1]
+        link = entry.is_symlink()
+        real = os.path.realpath(entry.path) if link else os.path.join(real_folder, name)
         if not decodable(name):
             refused.append((path, "undecodable_name"))
-        elif entry.is_symlink() and not inside(path, inbox):
+        elif link and not within(real, real_inbox):
             refused.append((path, "link_outside_inbox"))
         elif entry.is_dir():
             notes.append(_note("stray_folder", path, inbox))
             continue
         elif suffix == LABEL_SUFFIX:
             files.append(path)
+            reals.append(real)
             continue
         elif suffix.lower() in DATA_SUFFIXES:
             refused.append((path, "misnamed_label_file"))
@@ -220,4 +260,4 @@ def scan_source(inbox: Path, folder: Path) -> SourceEntries:
             notes.append(_note("stray_file", path, inbox))
             continue
         notes.append(_note(refused[-1][1], path, inbox))
-    return SourceEntries(files, refused, notes)
+    return SourceEntries(files, refused, notes, reals)

@@ -1,6 +1,7 @@
 """One night, one orchestration: the steps of a night over a :class:`BatchStore`.
 
-``start_night`` → ``check_items`` → ``validate_source`` (per source folder) →
+``start_night`` → ``check_items`` → ``validate_source`` (per source folder; :func:`validate_sources`
+for all of them in one process) →
 ``fit_consensus`` → ``analyse_source`` (per valid source) → ``publish_night`` (decide,
 publish, record, index) → ``send_alerts`` (Airflow only: the command line leaves the
 messages in ``alerts.json``). :func:`screen_night` runs them in order in one process (the
@@ -20,19 +21,18 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
-import pyarrow as pa
 
 from truthsieve.core.draw import DEMO_DRAW_KEY, DRAW_KEY_VARIABLE
 from truthsieve.core.incentives import SourceIncentive, context_from_totals
-from truthsieve.core.ids import id_array
 from truthsieve.core.statistics import add_contribution
 from truthsieve.exceptions import InputError
-from truthsieve.pipeline import ingest, work_files
+from truthsieve.pipeline import work_files
 from truthsieve.pipeline.analysis import analyse_one_source, fit_from_totals, item_ranks, night_items, source_from_codes, source_weights
 from truthsieve.pipeline.config import Config
 from truthsieve.pipeline.decision import Decision
 from truthsieve.pipeline.layout import ITEMS_FILE, batch_dir, source_name
 from truthsieve.pipeline.night_fit import Fit, read_fit
+from truthsieve.pipeline.night_inputs import ItemIndex, item_index, validate_items_at, validate_source_at, validate_sources_at
 from truthsieve.pipeline.records import FileCheck, Intake
 
 #: (key, is_demo_key) of the public demo key, used when an edge passes no secret.
@@ -47,36 +47,6 @@ def draw_key_from_environment(environ: Mapping[str, str]) -> tuple[str, bool]:
     """
     key = environ.get(DRAW_KEY_VARIABLE)
     return (key, False) if key else DEMO_KEY
-
-
-@dataclass(frozen=True)
-class ItemIndex:
-    """The items every source's labels are checked against: ids and weights, in table order."""
-
-    ids: pa.Array
-    weights: np.ndarray
-
-
-def item_index(items: FileCheck) -> ItemIndex | None:
-    """The valid items table's index; None when the items table is invalid."""
-    if not items.valid:
-        return None
-    ids = id_array(items.table["item_id"])
-    if "item_weight" in items.table:
-        return ItemIndex(ids, items.table["item_weight"].to_numpy(dtype=np.float64))
-    return ItemIndex(ids, np.ones(len(ids)))
-
-
-def validate_items_at(inbox: Path, batch_date: str, config: Config) -> FileCheck:
-    """Validate the night's items table (local inbox) against the configured rule class."""
-    kind = config.rule_class.kind
-    return ingest.validate_items(inbox, batch_date, config.rule_class.features, kind == "listed", kind, classes=config.class_alphabet)
-
-
-def validate_source_at(inbox: Path, batch_date: str, folder: str, config: Config, index: ItemIndex | None) -> FileCheck:
-    """Validate one source folder (local inbox) against the items index."""
-    ids, weights = (None, None) if index is None else (index.ids, index.weights)
-    return ingest.validate_source(inbox, batch_dir(inbox, batch_date) / folder, config.registry, ids, weights, classes=config.class_alphabet)
 
 
 # ---- the steps ----
@@ -121,6 +91,18 @@ def validate_source(store, batch_date: str, folder: str, config: Config, index: 
         check = validate_source_at(root, batch_date, folder, config, index)
         work_files.write_source(store, batch_date, folder, check, work_files.quarantine_blob(root, check))
     return check
+
+
+def validate_sources(store, batch_date: str, folders: list[str], config: Config, index: ItemIndex | None) -> list[FileCheck]:
+    """:func:`validate_source` of every folder in order, in one process (the command line):
+    the same checks, records and work files; on a local inbox the folders' item-id joins
+    are batched (:func:`~truthsieve.pipeline.night_inputs.validate_sources_at`)."""
+    if not isinstance(store.inbox, Path):  # object storage: each folder copied and validated on its own
+        return [validate_source(store, batch_date, f, config, index) for f in folders]
+    checks = list(validate_sources_at(store.inbox, batch_date, folders, config, index))
+    for folder, check in zip(folders, checks):
+        work_files.write_source(store, batch_date, folder, check, work_files.quarantine_blob(store.inbox, check))
+    return checks
 
 
 def fit_consensus(store, batch_date: str, config: Config, intake: Intake | None = None) -> Fit | None:
@@ -285,7 +267,7 @@ def screen_night(
         try:
             items = check_items(store, batch_date, config, columns_checked=True)  # the command line checked its whole range
             items_index = item_index(items)
-            intake = Intake(batch_date, items, [validate_source(store, batch_date, f, config, items_index) for f in folders])
+            intake = Intake(batch_date, items, validate_sources(store, batch_date, folders, config, items_index))
             fit = fit_consensus(store, batch_date, config, intake)
             incentives = None if fit is None else analyse_sources(store, batch_date, config, fit, workers)
             fit = None if fit is None else replace(fit, sources={})  # the sparse labels are done with: free them

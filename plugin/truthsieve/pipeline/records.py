@@ -6,7 +6,7 @@ Shared by :mod:`truthsieve.pipeline.ingest` and the Airflow tasks, which send a 
 
 from __future__ import annotations
 
-from dataclasses import asdict, dataclass, field
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -15,7 +15,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from truthsieve.core.labels import SourceCodes
-from truthsieve.pipeline.layout import Note, read_inside, relative, sha256
+from truthsieve.pipeline.layout import Note, read_inside, read_real, relative, sha256
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -78,6 +78,10 @@ class InputFile:
     rows: int | None
     source_id: str | None
     valid: bool
+
+    def as_dict(self) -> dict:
+        """``dataclasses.asdict`` of this flat record, without its deep copy."""
+        return {"path": self.path, "sha256": self.sha256, "rows": self.rows, "source_id": self.source_id, "valid": self.valid}
 
 
 def number_array(values: np.ndarray) -> pa.Array:
@@ -158,7 +162,7 @@ class FileCheck:
         """Everything but the table and bytes, as JSON-ready data (the table travels as Parquet)."""
         return {
             "source_id": self.source_id,
-            "inputs": [asdict(f) for f in self.inputs],
+            "inputs": [f.as_dict() for f in self.inputs],
             "errors": [e.as_dict() for e in self.errors],
             "notes": [n.as_dict() for n in self.notes],
         }
@@ -173,10 +177,12 @@ class FileCheck:
             notes=[Note(**n) for n in summary.get("notes", [])],
         )
 
-    def _read(self, path: Path, inbox: Path) -> tuple[str, bytes | None]:
+    def _read(self, path: Path, inbox: Path, real: str | None = None) -> tuple[str, bytes | None]:
+        """``path``'s bytes, kept for quarantine; ``real``: its real path, already known to
+        lie inside the inbox (:func:`~truthsieve.pipeline.layout.scan_source`)."""
         name = relative(path, inbox)
         try:
-            data = read_inside(path, inbox)
+            data = read_inside(path, inbox) if real is None else read_real(real)
         except PermissionError:
             self.errors.append(ErrorRecord(name, None, None, "link_outside_inbox", "a link whose target lies outside the inbox; not read"))
             return name, None
@@ -251,9 +257,15 @@ def quarantine_bytes(inbox: str | Path, check: FileCheck) -> dict[str, bytes]:
     return copies
 
 
+#: Files smaller than this are read on one thread and without pre-buffering (for a small
+#: label file the threads and the coalesced read cost more than the decoding).
+SMALL_FILE_BYTES = 1 << 22
+
+
 def parse(relative_path: str, data: bytes) -> tuple[pa.Table | None, ErrorRecord | None]:
-    try:
-        table = pq.ParquetFile(pa.BufferReader(data)).read()  # read_table would load the dataset layer
+    small = len(data) < SMALL_FILE_BYTES
+    try:  # read_table would load the dataset layer
+        table = pq.ParquetFile(pa.BufferReader(data), pre_buffer=not small).read(use_threads=not small)
     except (pa.ArrowException, OSError, ValueError) as error:
         return None, ErrorRecord(relative_path, None, None, "unreadable_parquet", f"not a readable Parquet file: {error}")
     if table.num_rows == 0:
