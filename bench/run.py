@@ -159,7 +159,7 @@ def measure(n_items: int, listed_rules: int, repeat: int) -> dict:
                 folders = steps.start_night(store, date)
                 items = timed("check_items", lambda: steps.check_items(store, date, config, columns_checked=True))
                 index = steps.item_index(items)
-                intake = timed("validate_sources", lambda: Intake(date, items, [steps.validate_source(store, date, f, config, index) for f in folders]))
+                intake = timed("validate_sources", lambda: Intake(date, items, steps.validate_sources(store, date, folders, config, index)))
                 fit = timed("consensus_fit", lambda: steps.fit_consensus(store, date, config, intake))
                 results = timed("incentives", lambda: [steps.analyse_source(store, date, config, s, fit) for s in fit.source_ids])
                 published = timed("decide_publish", lambda: steps.publish_night(store, date, config, intake=intake, incentives=results))
