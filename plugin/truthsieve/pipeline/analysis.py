@@ -25,7 +25,7 @@ import pyarrow.compute as pc
 from truthsieve.core import mechanisms
 from truthsieve.core import statistics as core_statistics
 from truthsieve.core.agreement import batch_agreement
-from truthsieve.core.dawid_skene import DawidSkeneFit, dawid_skene
+from truthsieve.core.dawid_skene import DawidSkeneFit, dawid_skene_sparse
 from truthsieve.core.incentives import SourceIncentive, analyse_source, context_from_totals, incentive_context, source_incentive
 from truthsieve.core.labels import Labels, LabelMatrix, build_label_matrix, normalised_weights, sorted_items
 from truthsieve.core.ids import as_ids, id_array
@@ -202,9 +202,9 @@ def analyse_batch(
         incentives = [source_incentive(matrix, rule_class, consensus, i, budget, shared) for i in range(matrix.n_sources)]
     registry_weights = {s.source_id: s.weight for s in config.sources}
     mechanism = run_mechanism(config.mechanism, matrix, rule_class, consensus, registry_weights)
-    reliability = dawid_skene(
-        matrix.labels,
-        matrix.labelled,
+    reliability = dawid_skene_sparse(
+        [(s.items, s.classes) for s in matrix.sources],
+        matrix.n_items,
         n_classes=matrix.n_classes,
         tolerance=config.analysis.dawid_skene_tolerance,
         max_iterations=config.analysis.dawid_skene_max_iterations,
