@@ -24,7 +24,7 @@ import pyarrow.compute as pc
 
 from truthsieve.core import mechanisms
 from truthsieve.core import statistics as core_statistics
-from truthsieve.core.agreement import batch_agreement
+from truthsieve.core.agreement import batch_agreement_of_counts, source_category_counts
 from truthsieve.core.dawid_skene import DawidSkeneFit, dawid_skene_sparse
 from truthsieve.core.incentives import SourceIncentive, analyse_source, context_from_totals, incentive_context, source_incentive
 from truthsieve.core.labels import Labels, LabelMatrix, build_label_matrix, normalised_weights, sorted_items
@@ -213,7 +213,8 @@ def analyse_batch(
     reports = assess_sources(
         matrix, consensus_labels, incentives, reliability, history, config.routing.thresholds(), n_classes=matrix.n_classes
     )
-    alpha, fleiss = batch_agreement(matrix.labels, matrix.labelled, matrix.n_classes)
+    sparse = [(s.items, s.classes) for s in matrix.sources]
+    alpha, fleiss = batch_agreement_of_counts(source_category_counts(sparse, matrix.n_items, matrix.n_classes))
     return BatchAnalysis(
         matrix=matrix,
         rule_class=rule_class,
