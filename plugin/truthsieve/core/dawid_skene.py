@@ -43,8 +43,7 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
-FloatArray = npt.NDArray[np.float64]
-IntArray = npt.NDArray[np.int64]
+from truthsieve.core.dawid_skene_terms import FloatArray, OneHot, Terms
 
 # Keeps log(0) out of the E-step when a source never made some confusion.
 _FLOOR = 1e-9
@@ -140,7 +139,7 @@ def dawid_skene(
 
 #: Up to this many one-hot cells (``K n m``; 64 MiB of float64) the fit holds the dense
 #: ``(K, n, m)`` one-hot, whose two ``einsum`` per iteration are the fastest form; above
-#: it, only the observed labels (:class:`_Terms`). Both give the same floats.
+#: it, only the observed labels (:class:`~truthsieve.core.dawid_skene_terms.Terms`). Both give the same floats.
 DENSE_CELLS = 2**23
 
 
@@ -180,7 +179,7 @@ def dawid_skene_sparse(
             raise ValueError("item codes must be increasing and in 0..n_items-1")
         observed.append((codes, values))
     cells = n_classes * len(observed) * n_items
-    terms: _OneHot | _Terms = _OneHot(observed, n_items, n_classes) if cells <= dense_cells else _Terms(observed, n_items, n_classes)
+    terms: OneHot | Terms = OneHot(observed, n_items, n_classes) if cells <= dense_cells else Terms(observed, n_items, n_classes)
     # votes is the transpose of a (K, m) array, so (m, K) in column order, as in the dense
     # fit: the layout decides the order of later reductions, so it is kept throughout.
     votes = terms.votes.T
@@ -209,102 +208,3 @@ def _maximise(posterior: FloatArray, counts: FloatArray) -> tuple[FloatArray, Fl
     n_classes = posterior.shape[1]
     confusion: FloatArray = np.where(row_totals > 0, counts / np.maximum(row_totals, 1e-300), 1.0 / n_classes)
     return prior, confusion
-
-
-class _OneHot:
-    """The dense ``(K, n, m)`` float64 one-hot and its two ``einsum`` (small nights)."""
-
-    def __init__(self, sources: Sequence[tuple[IntArray, IntArray]], n_items: int, n_classes: int) -> None:
-        n = len(sources)
-        self.one_hot = np.zeros((n_classes, n, n_items))
-        flat = self.one_hot.reshape(-1)
-        for i, (items, classes) in enumerate(sources):
-            flat[(classes * n + i) * n_items + items] = 1.0
-        self.votes = self.one_hot.sum(axis=1)  # (K, m)
-
-    def log_likelihood(self, log_confusion: FloatArray) -> FloatArray:
-        """``(K, m)``: ``sum_i log theta_i[k, y_ij]`` over item ``j``'s labels, for every ``k``."""
-        result: FloatArray = np.einsum("lnm,nkl->mk", self.one_hot, log_confusion).T
-        return result
-
-    def counts(self, posterior: FloatArray) -> FloatArray:
-        """``(n, K, K)``: ``sum_j T_jk [y_ij = l]`` over source ``i``'s items."""
-        result: FloatArray = np.einsum("mk,lnm->nkl", posterior, self.one_hot)
-        return result
-
-
-class _Terms:
-    """The observed labels only: each item's labels as codes ``l * n + i`` (class ``l``,
-    source ``i``), laid out in rounds, and each source's own items and classes.
-
-    Round ``r`` holds every item's ``r``-th label in (class, source) order, the order in
-    which the dense ``einsum`` over ``(l, n)`` adds an item's terms. Items are permuted by
-    decreasing label count, so round ``r`` is a prefix of the items: the E-step adds each
-    round with one gather and one slice addition, O(K |labels|) in all.
-    """
-
-    def __init__(self, sources: Sequence[tuple[IntArray, IntArray]], n_items: int, n_classes: int) -> None:
-        n = len(sources)
-        self.sources, self.n_items, self.n_classes = sources, n_items, n_classes
-        count = np.zeros(n_items, dtype=np.int64)
-        self.votes = np.zeros((n_classes, n_items))  # sums of 0/1: exact in any order
-        flat_votes = self.votes.reshape(-1)
-        for items, classes in sources:
-            count[items] += 1
-            flat_votes[classes * n_items + items] += 1.0  # a source labels an item once
-        self.perm: IntArray | None = None
-        position: IntArray | None = None
-        if n_items and count.min() != count.max():
-            self.perm = np.argsort(-count, kind="stable")
-            position = np.empty(n_items, dtype=np.int64)
-            position[self.perm] = np.arange(n_items)
-            count = count[self.perm]
-        rounds = int(count.max()) if n_items else 0
-        sizes = np.searchsorted(-count, -np.arange(rounds), side="left")  # items whose count exceeds r
-        base = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
-        flat: npt.NDArray[np.signedinteger] = np.empty(int(base[-1]), dtype=np.int32 if n * n_classes < 2**31 else np.int64)
-        filled = np.zeros(n_items, dtype=np.int64)
-        for label in range(n_classes):
-            for i, (items, classes) in enumerate(sources):
-                rows = items[classes == label]
-                r = filled[rows]
-                flat[base[r] + (rows if position is None else position[rows])] = label * n + i
-                filled[rows] = r + 1
-        self.rounds: list[npt.NDArray[np.signedinteger]] = [flat[base[r] : base[r + 1]] for r in range(rounds)]
-
-    def log_likelihood(self, log_confusion: FloatArray) -> FloatArray:
-        """``(K, m)``: ``sum_i log theta_i[k, y_ij]`` over item ``j``'s labels, for every ``k``."""
-        out = np.empty((self.n_classes, self.n_items))
-        for k in range(self.n_classes):
-            table = np.ascontiguousarray(log_confusion[:, k, :].T).reshape(-1)  # [l * n + i]
-            total = np.zeros(self.n_items)
-            for codes in self.rounds:
-                total[: len(codes)] += table.take(codes)
-            if self.perm is None:
-                out[k] = total
-            else:
-                out[k, self.perm] = total
-        return out
-
-    def counts(self, posterior: FloatArray) -> FloatArray:
-        """``(n, K, K)``: the dense ``einsum``'s kernel and output layout (column order but
-        for one source) on each source's own ``(K, 1, m)`` indicator in turn."""
-        n, k = len(self.sources), self.n_classes
-        counts = np.empty((n, k, k), order="C" if n == 1 else "F")
-        indicator = np.zeros((k, 1, self.n_items))
-        flat, dirty = indicator.reshape(-1), False
-        for i, (items, classes) in enumerate(self.sources):
-            if len(items) == self.n_items:  # every item: the rows are written whole
-                for label in range(k):
-                    np.equal(classes, label, out=indicator[label, 0])
-                dirty = True
-                counts[i] = np.einsum("mk,lnm->nkl", posterior, indicator)[0]
-                continue
-            if dirty:
-                indicator.fill(0.0)
-                dirty = False
-            cells = classes * self.n_items + items
-            flat[cells] = 1.0
-            counts[i] = np.einsum("mk,lnm->nkl", posterior, indicator)[0]
-            flat[cells] = 0.0
-        return counts
