@@ -169,7 +169,9 @@ def dawid_skene_sparse(
         raise ValueError(f"n_classes must be at least 2, got {n_classes}")
     observed = []
     for items, classes in sources:
-        codes, values = np.asarray(items, dtype=np.int64), np.asarray(classes, dtype=np.int64)
+        codes, values = np.asarray(items, dtype=np.int64), np.asarray(classes)
+        if not np.issubdtype(values.dtype, np.integer):
+            values = values.astype(np.int64)
         if codes.shape != values.shape or codes.ndim != 1:
             raise ValueError("each source needs one class index per item code")
         if len(values) and (values.min() < 0 or values.max() >= n_classes):

@@ -26,7 +26,7 @@ class OneHot:
         self.one_hot = np.zeros((n_classes, n, n_items))
         flat = self.one_hot.reshape(-1)
         for i, (items, classes) in enumerate(sources):
-            flat[(classes * n + i) * n_items + items] = 1.0
+            flat[(classes.astype(np.int64) * n + i) * n_items + items] = 1.0
         self.votes = self.one_hot.sum(axis=1)  # (K, m)
 
     def log_likelihood(self, log_confusion: FloatArray) -> FloatArray:
@@ -58,7 +58,7 @@ class Terms:
         flat_votes = self.votes.reshape(-1)
         for items, classes in sources:
             count[items] += 1
-            flat_votes[classes * n_items + items] += 1.0  # a source labels an item once
+            flat_votes[classes.astype(np.int64) * n_items + items] += 1.0  # a source labels an item once
         self.perm: IntArray | None = None
         position: IntArray | None = None
         if n_items and count.min() != count.max():
@@ -110,7 +110,7 @@ class Terms:
             if dirty:
                 indicator.fill(0.0)
                 dirty = False
-            cells = classes * self.n_items + items
+            cells = classes.astype(np.int64) * self.n_items + items
             flat[cells] = 1.0
             counts[i] = np.einsum("mk,lnm->nkl", posterior, indicator)[0]
             flat[cells] = 0.0
