@@ -212,3 +212,32 @@ def test_labels_outside_the_classes_are_an_error():
         category_counts(np.array([[0, 4], [1, 2]]), n_classes=4)
     with pytest.raises(ValueError, match="at least 2"):
         category_counts(np.array([[0, 0]]), n_classes=1)
+
+
+# ---- from each source's own labels (the pipeline's form) ----
+
+@pytest.mark.parametrize("seed", range(12))
+def test_agreement_from_each_sources_labels_is_the_matrix_form_float_for_float(seed):
+    from truthsieve.core.agreement import batch_agreement_of_counts, krippendorff_alpha_of_counts, source_category_counts
+
+    rng = np.random.default_rng(300 + seed)
+    n, m, k = int(rng.integers(1, 9)), int(rng.integers(1, 400)), int(rng.integers(2, 6))
+    truth = rng.integers(0, k, m)
+    labels = np.where(rng.random((n, m)) < 0.7, truth, rng.integers(0, k, (n, m)))
+    labelled = np.ones((n, m), bool) if seed % 3 == 0 else rng.random((n, m)) < rng.uniform(0.1, 0.9)
+    sources = [(np.flatnonzero(seen), row[seen]) for row, seen in zip(labels, labelled)]
+    counts = source_category_counts(sources, m, k)
+    np.testing.assert_array_equal(counts, category_counts(labels, labelled, k))
+    assert batch_agreement_of_counts(counts) == batch_agreement(labels, labelled, k)
+    ratings = np.where(labelled, labels.astype(float), np.nan)
+    assert krippendorff_alpha_of_counts(counts) == krippendorff_alpha_nominal(ratings)
+    if np.isfinite(ratings).sum() and (np.isfinite(ratings).sum(axis=0) >= 2).any() and len(np.unique(ratings[np.isfinite(ratings)])) > 1:
+        expected = krippendorff.alpha(reliability_data=ratings, level_of_measurement="nominal")
+        assert krippendorff_alpha_of_counts(counts) == pytest.approx(expected, abs=1e-10)
+
+
+def test_category_counts_from_sources_refuse_a_label_outside_the_classes():
+    from truthsieve.core.agreement import source_category_counts
+
+    with pytest.raises(ValueError, match="not a class index"):
+        source_category_counts([(np.array([0, 1]), np.array([0, 2]))], 2, 2)

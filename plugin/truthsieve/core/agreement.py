@@ -9,6 +9,7 @@ labels and to lay out the count table.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
@@ -57,6 +58,20 @@ def category_counts(labels: npt.ArrayLike, labelled: npt.ArrayLike | None = None
     return np.stack([(mask & (values == k)).sum(axis=0) for k in range(n_classes)], axis=1)
 
 
+def source_category_counts(
+    sources: Sequence[tuple[npt.ArrayLike, npt.ArrayLike]], n_items: int, n_classes: int = 2
+) -> npt.NDArray[np.int64]:
+    """:func:`category_counts` from each source's ``(items, classes)`` (its item codes,
+    unique, and its class index on each): O(|labels|), no sources x items matrix."""
+    counts = np.zeros((n_items, n_classes), dtype=np.int64)
+    flat = counts.reshape(-1)
+    for items, classes in sources:
+        values = np.asarray(classes, dtype=np.int64)
+        observed_mask(values, None, n_classes)
+        flat[np.asarray(items, dtype=np.int64) * n_classes + values] += 1  # a source labels an item once
+    return counts
+
+
 def fleiss_kappa(counts: npt.ArrayLike) -> float | None:
     """Fleiss' kappa from an items x categories table of label counts (any number of categories).
 
@@ -100,7 +115,23 @@ def krippendorff_alpha_nominal(ratings: npt.ArrayLike) -> float | None:
     if len(values) == 0:
         return None
     # counts[u, c]: how many raters gave unit u the value c
-    counts = np.stack([(table == v).sum(axis=0) for v in values], axis=1).astype(np.float64)
+    return _alpha_of_counts(np.stack([(table == v).sum(axis=0) for v in values], axis=1).astype(np.float64))
+
+
+def krippendorff_alpha_of_counts(counts: npt.ArrayLike) -> float | None:
+    """:func:`krippendorff_alpha_nominal` from an items x categories table of label counts
+    (:func:`category_counts`); a category nobody used adds nothing, as there."""
+    table = np.asarray(counts)
+    if table.ndim != 2:
+        raise ValueError(f"counts must be an items x categories table, got shape {table.shape}")
+    used = np.flatnonzero(table.sum(axis=0) > 0)
+    return _alpha_of_counts(table[:, used].astype(np.float64))
+
+
+def _alpha_of_counts(counts: npt.NDArray[np.float64]) -> float | None:
+    """Alpha from ``counts[u, c]`` over the values that occur (columns in value order)."""
+    if counts.shape[1] == 0:
+        return None
     pairable = counts.sum(axis=1)
     counts = counts[pairable >= 2]
     pairable = pairable[pairable >= 2]
@@ -122,6 +153,11 @@ def krippendorff_alpha_of_labels(labels: npt.ArrayLike, labelled: npt.ArrayLike 
     (missing by the mask, or ``-1`` when no mask is given)."""
     values, mask = observed_mask(labels, labelled, n_classes)
     return krippendorff_alpha_nominal(np.where(mask, values.astype(np.float64), np.nan))
+
+
+def batch_agreement_of_counts(counts: npt.ArrayLike) -> tuple[float | None, float | None]:
+    """:func:`batch_agreement` from the items x categories count table (the same floats)."""
+    return krippendorff_alpha_of_counts(counts), fleiss_kappa(counts)
 
 
 def batch_agreement(

@@ -8,6 +8,11 @@ reports ``l`` with probability ``theta_i[k, l]`` independently of the others. EM
 error-rates using the EM algorithm", Applied Statistics 28, 1979). Started from the
 majority proportions on each item, so classes keep their meaning.
 
+:func:`dawid_skene_sparse` fits from each source's observed ``(items, classes)`` alone
+(the pipeline's form); past :data:`DENSE_CELLS` one-hot cells it never builds a
+``(K, n, m)`` array, and it adds every sum in the dense fit's order, so the floats are
+the same either way.
+
 Labels are class indices ``0..K-1``; a missing label is marked by the ``labelled`` mask
 or, when no mask is given, by ``-1``. ``K`` is given explicitly (default 2), so a class
 that nobody reported tonight still has its row and column.
@@ -31,13 +36,14 @@ published as ``1 - disagreement``.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import numpy.typing as npt
 
-FloatArray = npt.NDArray[np.float64]
+from truthsieve.core.dawid_skene_terms import FloatArray, OneHot, Terms
 
 # Keeps log(0) out of the E-step when a source never made some confusion.
 _FLOOR = 1e-9
@@ -122,21 +128,74 @@ def dawid_skene(
     :param tolerance: stop when no parameter moves by more than this.
     """
     values, mask = observed_mask(labels, labelled, n_classes)
-    one_hot = np.stack([(values == k) & mask for k in range(n_classes)]).astype(np.float64)  # (K, n, m)
-    votes = one_hot.sum(axis=1).T  # (m, K)
+    if values.ndim != 2:
+        raise ValueError(f"labels must be a sources x items matrix, got shape {values.shape}")
+    sources = []
+    for row, seen in zip(values, mask):
+        items = np.flatnonzero(seen)
+        sources.append((items, row[items]))
+    return dawid_skene_sparse(sources, values.shape[1], n_classes, tolerance, max_iterations)
+
+
+#: Up to this many one-hot cells (``K n m``; 64 MiB of float64) the fit holds the dense
+#: ``(K, n, m)`` one-hot, whose two ``einsum`` per iteration are the fastest form; above
+#: it, only the observed labels (:class:`~truthsieve.core.dawid_skene_terms.Terms`). Both give the same floats.
+DENSE_CELLS = 2**23
+
+
+def dawid_skene_sparse(
+    sources: Sequence[tuple[npt.ArrayLike, npt.ArrayLike]],
+    n_items: int,
+    n_classes: int = 2,
+    tolerance: float = 1e-6,
+    max_iterations: int = 200,
+    dense_cells: int = DENSE_CELLS,
+) -> DawidSkeneFit:
+    """:func:`dawid_skene` from each source's observed labels: no ``(n, m)`` matrix needed.
+
+    :param sources: per source, in source order, ``(items, classes)``: the item codes it
+        labelled (increasing, unique, in ``0..n_items-1``) and its class index on each.
+    :param n_items: ``m``.
+    :param dense_cells: the largest ``K n m`` fitted with the dense one-hot (see
+        :data:`DENSE_CELLS`); above it the E-step sums each item's terms over its own
+        labels only, O(K |labels|) per iteration, and the M-step holds one source's
+        ``(K, 1, m)`` indicator at a time.
+
+    Every sum adds its terms in exactly the order of the dense one-hot ``einsum`` (an
+    item's terms by class, then by source; a confusion count with the same ``einsum``
+    kernel on the same memory layout), so both forms give the same floats.
+    """
+    if n_classes < 2:
+        raise ValueError(f"n_classes must be at least 2, got {n_classes}")
+    observed = []
+    for items, classes in sources:
+        codes, values = np.asarray(items, dtype=np.int64), np.asarray(classes)
+        if not np.issubdtype(values.dtype, np.integer):
+            values = values.astype(np.int64)
+        if codes.shape != values.shape or codes.ndim != 1:
+            raise ValueError("each source needs one class index per item code")
+        if len(values) and (values.min() < 0 or values.max() >= n_classes):
+            bad = values[(values < 0) | (values >= n_classes)][0]
+            raise ValueError(f"label {bad!r} is not a class index in 0..{n_classes - 1}")
+        if len(codes) and (codes[0] < 0 or codes[-1] >= n_items or (codes[1:] <= codes[:-1]).any()):
+            raise ValueError("item codes must be increasing and in 0..n_items-1")
+        observed.append((codes, values))
+    cells = n_classes * len(observed) * n_items
+    terms: OneHot | Terms = OneHot(observed, n_items, n_classes) if cells <= dense_cells else Terms(observed, n_items, n_classes)
+    # votes is the transpose of a (K, m) array, so (m, K) in column order, as in the dense
+    # fit: the layout decides the order of later reductions, so it is kept throughout.
+    votes = terms.votes.T
     totals = votes.sum(axis=1, keepdims=True)
     posterior: FloatArray = np.where(totals > 0, votes / np.maximum(totals, 1), 1.0 / n_classes)
 
-    prior, confusion = _maximise(posterior, one_hot)
+    prior, confusion = _maximise(posterior, terms.counts(posterior))
     converged, iteration = False, 0
     for iteration in range(1, max_iterations + 1):
-        log_posterior = np.log(np.maximum(prior, _FLOOR)) + np.einsum(
-            "lnm,nkl->mk", one_hot, np.log(np.maximum(confusion, _FLOOR))
-        )
+        log_posterior = np.log(np.maximum(prior, _FLOOR)) + terms.log_likelihood(np.log(np.maximum(confusion, _FLOOR))).T
         log_posterior -= log_posterior.max(axis=1, keepdims=True)
         posterior = np.exp(log_posterior)
         posterior /= posterior.sum(axis=1, keepdims=True)
-        new_prior, new_confusion = _maximise(posterior, one_hot)
+        new_prior, new_confusion = _maximise(posterior, terms.counts(posterior))
         change = max(np.abs(new_prior - prior).max(), np.abs(new_confusion - confusion).max())
         prior, confusion = new_prior, new_confusion
         if change < tolerance:
@@ -145,9 +204,8 @@ def dawid_skene(
     return DawidSkeneFit(prior=prior, confusion=confusion, posterior=posterior, iterations=iteration, converged=converged)
 
 
-def _maximise(posterior: FloatArray, one_hot: FloatArray) -> tuple[FloatArray, FloatArray]:
+def _maximise(posterior: FloatArray, counts: FloatArray) -> tuple[FloatArray, FloatArray]:
     prior: FloatArray = posterior.mean(axis=0)
-    counts = np.einsum("mk,lnm->nkl", posterior, one_hot)  # (n, K, K)
     row_totals = counts.sum(axis=2, keepdims=True)
     n_classes = posterior.shape[1]
     confusion: FloatArray = np.where(row_totals > 0, counts / np.maximum(row_totals, 1e-300), 1.0 / n_classes)

@@ -91,14 +91,14 @@ def assess_sources(
     base: list[tuple[int, str, int, int, int, SourceIncentive, float, float, tuple[float | None, float | None], SourceHistory | None]] = []
     p_values: list[float] = []
     for i, source in enumerate(matrix.source_ids):
-        mask = matrix.labelled[i]
-        own = matrix.labels[i][mask]
-        fitted = fitted_labels[mask]
-        items = int(mask.sum())
+        labels = matrix.sources[i]  # the source's own items, increasing: the mask's order
+        own = labels.classes
+        fitted = fitted_labels[labels.items]
+        items = len(labels.items)
         positives = int(np.count_nonzero(own))
         disagreements = int((own != fitted).sum())
         incentive = incentives[i]
-        n_effective = effective_sample_size(matrix.item_weights[mask])
+        n_effective = effective_sample_size(labels.item_weights)
         low, high = wilson_interval(incentive.disagreement * n_effective, n_effective, thresholds.confidence)
         past = history.get(source)
         drift: tuple[float | None, float | None] = (None, None)
@@ -114,7 +114,7 @@ def assess_sources(
     reports = []
     for i, source, items, positives, disagreements, incentive, low, high, drift, past in base:
         drift_adjusted = tuple(float(next(adjusted)) if p is not None else None for p in drift)
-        mask = matrix.labelled[i]
+        labels = matrix.sources[i]
         report = SourceReport(
             source_id=source,
             weight=float(matrix.source_weights[i]),
@@ -125,7 +125,7 @@ def assess_sources(
             disagreement=incentive.disagreement,
             disagreement_low=low,
             disagreement_high=high,
-            kappa=cohen_kappa(matrix.labels[i][mask], fitted_labels[mask], classes),
+            kappa=cohen_kappa(labels.classes, fitted_labels[labels.items], classes),
             sensitivity=float(reliability.sensitivity[i]),
             specificity=float(reliability.specificity[i]),
             balanced_accuracy=float(reliability.balanced_accuracy[i]),

@@ -37,8 +37,9 @@ class SourceLabels:
 
     :param source_id: the source's id.
     :param items: item codes (positions in the night's sorted items), increasing, unique.
-    :param classes: the source's class index on each of those items.
-    :param item_weights: ``u_j`` on those items.
+    :param classes: the source's class index on each of those items (int8 when every
+        index fits, as with up to 128 classes; compute offsets from them in int64).
+    :param item_weights: ``u_j`` on those items (read-only; one shared 1.0 for unit weights).
     :param weight: normalised source weight ``w_i`` (over the sources present).
     :param coverage: ``U_i = sum u_j`` over the source's items.
     """
@@ -85,13 +86,20 @@ def source_statistics(
     order = np.argsort(codes, kind="stable")
     codes = codes[order]
     own_weights = np.asarray(item_weights, dtype=np.float64)[codes]
+    coverage = float(own_weights.sum())
+    if len(own_weights) and (own_weights == 1.0).all():
+        # Unit weights (no item_weight column): one shared read-only 1.0, the same floats
+        # in every sum and product, 8 bytes per label less.
+        own_weights = np.broadcast_to(np.float64(1.0), own_weights.shape)
+    values = np.asarray(classes)[order]
+    small = len(values) == 0 or (values.min() >= 0 and values.max() <= np.iinfo(np.int8).max)
     return SourceLabels(
         source_id=source_id,
         items=codes,
-        classes=np.asarray(classes, dtype=np.int64)[order],
+        classes=values.astype(np.int8 if small else np.int64),  # class indices, as small as they fit
         item_weights=own_weights,
         weight=float(weight),
-        coverage=float(own_weights.sum()),
+        coverage=coverage,
     )
 
 

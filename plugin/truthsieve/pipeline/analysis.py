@@ -24,8 +24,8 @@ import pyarrow.compute as pc
 
 from truthsieve.core import mechanisms
 from truthsieve.core import statistics as core_statistics
-from truthsieve.core.agreement import batch_agreement
-from truthsieve.core.dawid_skene import DawidSkeneFit, dawid_skene
+from truthsieve.core.agreement import batch_agreement_of_counts, source_category_counts
+from truthsieve.core.dawid_skene import DawidSkeneFit, dawid_skene_sparse
 from truthsieve.core.incentives import SourceIncentive, analyse_source, context_from_totals, incentive_context, source_incentive
 from truthsieve.core.labels import Labels, LabelMatrix, build_label_matrix, normalised_weights, sorted_items
 from truthsieve.core.ids import as_ids, id_array
@@ -33,12 +33,14 @@ from truthsieve.core.mechanisms import ConsensusFit, MechanismResult, fit_consen
 from truthsieve.core.rules import RuleClass, build_rule_class, rule_class_kind
 from truthsieve.core.sampling import items_needed
 from truthsieve.core.source_checks import SourceHistory, SourceReport, assess_sources
-from truthsieve.core.statistics import FloatArray, SourceLabels
-from truthsieve.exceptions import ClassIndexError, UnknownReferenceError
+from truthsieve.core.statistics import FloatArray, SourceLabels, label_dtype
+from truthsieve.exceptions import ClassIndexError, NoItemsError, NoSourcesError, UnknownReferenceError
 from truthsieve.pipeline.config import Config
 
 if TYPE_CHECKING:
     import pandas as pd
+
+    from truthsieve.pipeline.night_fit import Fit
 
 
 @dataclass(frozen=True)
@@ -63,7 +65,13 @@ def class_count(config: Config, n_classes: int | None = None) -> int:
 
 
 def prepare(
-    labels: Labels, items: "pd.DataFrame", config: Config, *, n_classes: int | None = None, rule_class: RuleClass | None = None
+    labels: Labels,
+    items: "pd.DataFrame",
+    config: Config,
+    *,
+    n_classes: int | None = None,
+    rule_class: RuleClass | None = None,
+    fit: "Fit | None" = None,
 ) -> tuple[LabelMatrix, RuleClass, ConsensusFit]:
     """The label matrix, the rule class and the consensus fit (labels are class indices).
 
@@ -71,13 +79,54 @@ def prepare(
         codes into ``items``' rows), or the long label table.
     :param rule_class: the night's rule class when this process already built it
         (:func:`night_items` orders items as the matrix does); built here when None.
+    :param fit: the consensus step's :class:`~truthsieve.pipeline.night_fit.Fit` when this
+        process holds it with every source's sparse labels (the command line): its
+        labels, summed costs, rule class and fit are taken as they are (the same floats),
+        nothing is rebuilt or refitted. Ignored when it lacks a source of ``labels``.
     """
     k = class_count(config, n_classes)
+    if fit is not None and isinstance(labels, (list, tuple)) and _holds_every_source(fit, labels, k):
+        ordered = [fit.sources[source_id] for source_id in sorted(fit.sources)]
+        matrix = _matrix_from_sources(ordered, fit.night.item_ids, fit.night.item_weights, k, fit.totals)
+        return matrix, fit.rule_class, fit.consensus
     weights = {s.source_id: s.weight for s in config.sources}
     matrix = build_label_matrix(labels, items, weights, n_classes=k)
     if rule_class is None:
         rule_class = build_rule_class(config.rule_class.kind, items, matrix.item_ids, config.rule_class.features, k)
     return matrix, rule_class, fit_consensus(matrix, rule_class)
+
+
+def _matrix_from_sources(
+    sources: Sequence[SourceLabels], item_ids: np.ndarray, item_weights: FloatArray, n_classes: int, global_costs: FloatArray | None = None
+) -> LabelMatrix:
+    """The :class:`~truthsieve.core.labels.LabelMatrix` of sources already in sparse form
+    (one process's fit step holds them): the arrays ``build_label_matrix`` makes from their codes.
+
+    :param sources: every source's labels, sorted by id, weights normalised over them.
+    :param global_costs: their summed costs ``sum_i w_i c_i`` when already summed (in
+        source order from zeros, as the matrix sums them); not copied, so not to be changed.
+    """
+    if not sources:
+        raise NoSourcesError("no source labelled any item")
+    shape = (len(sources), len(item_ids))
+    dense_labels, labelled = np.zeros(shape, dtype=label_dtype(n_classes)), np.zeros(shape, dtype=bool)
+    for row, source in enumerate(sources):
+        dense_labels[row, source.items] = source.classes
+        labelled[row, source.items] = True
+    weights = np.array([source.weight for source in sources], dtype=np.float64)
+    matrix = LabelMatrix(item_ids, tuple(s.source_id for s in sources), dense_labels, labelled, item_weights, weights, n_classes)
+    matrix.__dict__["sources"] = tuple(sources)  # the cached property, already computed
+    if global_costs is not None:
+        matrix.__dict__["_global_costs"] = global_costs
+    empty = [s.source_id for s in sources if not s.coverage > 0]
+    if empty:
+        raise NoItemsError(f"sources labelled no item of positive weight: {', '.join(empty)}")
+    return matrix
+
+
+def _holds_every_source(fit: "Fit", labels: Sequence, n_classes: int) -> bool:
+    held = {str(s.source_id) for s in labels}
+    return bool(held) and set(fit.sources) == held == set(fit.weights) and fit.rule_class.n_classes == n_classes
 
 
 @dataclass(frozen=True)
@@ -186,15 +235,16 @@ def analyse_batch(
     *,
     n_classes: int | None = None,
     rule_class: RuleClass | None = None,
+    fit: "Fit | None" = None,
 ) -> BatchAnalysis:
     """Every number of one batch.
 
-    :param labels: as :func:`prepare` takes them; ``rule_class`` too.
+    :param labels: as :func:`prepare` takes them; ``rule_class`` and ``fit`` too.
     :param incentives: per-source results computed elsewhere (e.g. in mapped Airflow
         tasks); computed here when None.
     :param n_classes: ``K`` (default: from ``config.classes``, else 2).
     """
-    matrix, rule_class, consensus = prepare(labels, items, config, n_classes=n_classes, rule_class=rule_class)
+    matrix, rule_class, consensus = prepare(labels, items, config, n_classes=n_classes, rule_class=rule_class, fit=fit)
     if incentives is None:
         budget = config.analysis.incentive_budget
         # The shared global risks are what a lone mapped task computes too: same floats.
@@ -203,9 +253,9 @@ def analyse_batch(
     registry_weights = {s.source_id: s.weight for s in config.sources}
     own_rules = {i.source_id: i.own_best_rule for i in incentives}  # the dictators' rules, found already
     mechanism = run_mechanism(config.mechanism, matrix, rule_class, consensus, registry_weights, own_rules)
-    reliability = dawid_skene(
-        matrix.labels,
-        matrix.labelled,
+    reliability = dawid_skene_sparse(
+        [(s.items, s.classes) for s in matrix.sources],
+        matrix.n_items,
         n_classes=matrix.n_classes,
         tolerance=config.analysis.dawid_skene_tolerance,
         max_iterations=config.analysis.dawid_skene_max_iterations,
@@ -214,7 +264,8 @@ def analyse_batch(
     reports = assess_sources(
         matrix, consensus_labels, incentives, reliability, history, config.routing.thresholds(), n_classes=matrix.n_classes
     )
-    alpha, fleiss = batch_agreement(matrix.labels, matrix.labelled, matrix.n_classes)
+    sparse = [(s.items, s.classes) for s in matrix.sources]
+    alpha, fleiss = batch_agreement_of_counts(source_category_counts(sparse, matrix.n_items, matrix.n_classes))
     return BatchAnalysis(
         matrix=matrix,
         rule_class=rule_class,

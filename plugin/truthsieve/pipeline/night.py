@@ -17,7 +17,7 @@ from __future__ import annotations
 import hashlib
 import json
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -200,7 +200,8 @@ def publish_night(
     :param draw_key: (secret, is_demo_key) from :func:`draw_key_from_environment`.
     :param intake, incentives: read from the work area when None.
     :param fit: the consensus step's :class:`Fit` when this process holds it (its rule
-        class is reused, not rebuilt).
+        class is reused, not rebuilt; so are its sparse labels, summed costs and fit when
+        it holds every source's labels).
     :param index: rewrite ``index.html`` (a backfill writes it once at the end).
     """
     from truthsieve.pipeline.screen import decide_night
@@ -212,7 +213,7 @@ def publish_night(
         decided = decide_night(
             intake, config, store.history(batch_date, config.routing.drift_window), incentives,
             in_force_before=store.in_force_before(batch_date), previous=store.published_decision(batch_date),
-            recent=store.recent(batch_date), draw_key=draw_key, rule_class=None if fit is None else fit.rule_class,
+            recent=store.recent(batch_date), draw_key=draw_key, rule_class=None if fit is None else fit.rule_class, fit=fit,
         )
         files = {**decided.files, **work_files.quarantine_copies(store, intake)}
         output = store.publish(batch_date, files)
@@ -270,7 +271,6 @@ def screen_night(
             intake = Intake(batch_date, items, validate_sources(store, batch_date, folders, config, items_index))
             fit = fit_consensus(store, batch_date, config, intake)
             incentives = None if fit is None else analyse_sources(store, batch_date, config, fit, workers)
-            fit = None if fit is None else replace(fit, sources={})  # the sparse labels are done with: free them
             return publish_night(store, batch_date, config, draw_key, intake, incentives, index, fit)
         finally:
             store.clear_work(batch_date)

@@ -19,6 +19,7 @@ from truthsieve.pipeline.analysis import BatchAnalysis, analyse_batch
 from truthsieve.pipeline.config import Config
 from truthsieve.pipeline.decision import Decision, build_decision, decision_json
 from truthsieve.pipeline.night import DEMO_KEY, Published, draw_key_from_environment, screen_night
+from truthsieve.pipeline.night_fit import Fit
 from truthsieve.pipeline.output_tables import aggregate_table, sources_table
 from truthsieve.pipeline.outputs import dumps_decision, parquet_bytes
 from truthsieve.pipeline.records import Intake
@@ -51,11 +52,14 @@ def decide_night(
     *,
     draw_key: tuple[str, bool] = DEMO_KEY,
     rule_class: RuleClass | None = None,
+    fit: Fit | None = None,
 ) -> Decided:
     """Analyse, route, draw and render one night (pure: no store, no environment).
 
     :param rule_class: the night's rule class when the caller holds it (the consensus
         step's, in one process); built from the items table when None.
+    :param fit: the consensus step's fit when this process holds it with every source's
+        sparse labels: the analysis reuses them (:func:`~truthsieve.pipeline.analysis.prepare`).
 
     :param in_force_before: the rule in force before this night (see
         :func:`truthsieve.pipeline.verdicts.in_force_before`); only the report reads it.
@@ -67,7 +71,7 @@ def decide_night(
     revision, earlier = draw_revision(previous, intake, config.digest(), key_fingerprint(key))
     analysis = None
     if intake.items.valid and intake.valid_sources:
-        analysis = analyse_batch(intake.label_codes, intake.items.table, config, history, incentives, rule_class=rule_class)
+        analysis = analyse_batch(intake.label_codes, intake.items.table, config, history, incentives, rule_class=rule_class, fit=fit)
     route, reasons = route_batch(
         analysis, [s.source_id for s in intake.quarantined], len(intake.valid_sources), config, demo_key, intake.items.valid, revision
     )
