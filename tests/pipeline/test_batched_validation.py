@@ -336,8 +336,8 @@ def test_a_resolved_file_is_never_read_through_a_link(tmp_path):
     secret.write_bytes(b"not yours")
     os.symlink(secret, tmp_path / "swapped")  # a file replaced by a link after it was resolved
     with pytest.raises(OSError):
-        layout.read_real(str(tmp_path / "swapped"))
-    assert layout.read_real(str(secret)) == b"not yours"
+        layout.read_real(str(tmp_path / "swapped"), str(tmp_path))
+    assert layout.read_real(str(secret), os.path.realpath(tmp_path)) == b"not yours"
 
 
 def test_relative_names_are_relative_to_as_posix(tmp_path):
@@ -370,3 +370,86 @@ def test_a_file_reads_the_same_on_one_thread_or_several(monkeypatch, limit):
     monkeypatch.setattr(records, "SMALL_FILE_BYTES", limit)
     read, error = parse("f.parquet", data)
     assert error is None and read.equals(table)
+
+
+def _two_sources(inbox: Path) -> list[Path]:
+    batch = inbox / "batch_date=2026-01-01"
+    for s in ("a", "b"):
+        (batch / f"source_id={s}").mkdir(parents=True)
+        pq.write_table(pa.table({"item_id": ["i1", "i2"], "label": pa.array([0, 1], pa.int8())}), batch / f"source_id={s}" / "x.parquet")
+    return [batch / "source_id=a", batch / "source_id=b"]
+
+
+def test_a_batch_folder_swapped_for_a_link_leaving_the_inbox_mid_night_is_not_read(tmp_path):
+    """The real paths are found once per night; a folder above a file turned into a link to
+    outside after that must still be refused (the opened file itself is checked)."""
+    inbox, outside = tmp_path / "inbox", tmp_path / "outside"
+    outside.mkdir()
+    folders = _two_sources(inbox)
+    batch = folders[0].parent
+
+    def feed():
+        yield folders[0]
+        os.rename(batch, outside / batch.name)  # the night's files now live outside, reached by a link
+        os.symlink(outside / batch.name, batch)
+        yield folders[1]
+
+    first, second = ingest.validate_sources(inbox, feed(), {"a": 1, "b": 1}, pa.array(["i1", "i2"]))
+    assert first.valid
+    assert not second.valid and [e.code for e in second.errors] == ["link_outside_inbox"]
+    assert second.inputs == [] and second.contents == {}
+
+
+def test_a_source_folder_swapped_for_a_link_between_two_reads_is_not_read(tmp_path, monkeypatch):
+    inbox, outside = tmp_path / "inbox", tmp_path / "outside"
+    outside.mkdir()
+    source = inbox / "batch_date=2026-01-01" / "source_id=a"
+    source.mkdir(parents=True)
+    for k in range(2):
+        pq.write_table(pa.table({"item_id": [f"i{k}"], "label": pa.array([k], pa.int8())}), source / f"f{k}.parquet")
+    from truthsieve.pipeline import records
+
+    original, reads = records.read_real, []
+
+    def read_then_swap(*arguments):  # stands in for a writer racing the night
+        reads.append(arguments[0])
+        data = original(*arguments)
+        if len(reads) == 1:
+            os.rename(source, outside / "a")
+            os.symlink(outside / "a", source)
+        return data
+
+    monkeypatch.setattr(records, "read_real", read_then_swap)
+    check = ingest.validate_source(inbox, source, {"a": 1}, pa.array(["i0", "i1"]))
+    assert len(reads) == 2, "both files were opened by read_real"
+    assert [(e.code, e.file) for e in check.errors] == [("link_outside_inbox", "batch_date=2026-01-01/source_id=a/f1.parquet")]
+    assert not check.valid
+
+
+def test_the_opened_files_location_is_the_kernels_record(tmp_path):
+    inside = tmp_path / "inbox" / "x"
+    inside.parent.mkdir()
+    inside.write_bytes(b"1")
+    fd = os.open(inside, os.O_RDONLY)
+    try:
+        assert layout.opened_location(fd, str(inside)) == os.path.realpath(inside)
+    finally:
+        os.close(fd)
+    assert layout.read_real(os.path.realpath(inside), os.path.realpath(inside.parent)) == b"1"
+    with pytest.raises(PermissionError):
+        layout.read_real(os.path.realpath(inside), os.path.realpath(tmp_path / "elsewhere"))
+
+
+def test_a_file_that_cannot_be_opened_is_unreadable_not_a_link(tmp_path, monkeypatch):
+    """EACCES (a mode-000 file for a non-root user; these tests may run as root, so the
+    refusal is simulated at the one call that opens label files)."""
+    from truthsieve.pipeline import records
+
+    folders = _two_sources(tmp_path / "inbox")
+
+    def refused(real, real_inbox):
+        raise PermissionError(13, "Permission denied", real)
+
+    monkeypatch.setattr(records, "read_real", refused)
+    check = ingest.validate_source(tmp_path / "inbox", folders[0], {"a": 1}, pa.array(["i1", "i2"]))
+    assert [(e.rule, e.message) for e in check.errors] == [("unreadable_file", "cannot read: Permission denied")]

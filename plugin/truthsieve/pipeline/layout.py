@@ -129,12 +129,32 @@ def real_child(path: Path, real_parent: str) -> str:
     return os.path.join(real_parent, name)
 
 
-def read_real(real: str) -> bytes:
-    """The bytes at a resolved path (checked inside the inbox by the caller), never through
-    a link: a last component that became a link since it was resolved is not followed."""
+class LeavesInbox(PermissionError):
+    """A file whose real location lies outside the inbox: refused, never read."""
+
+
+def read_real(real: str, real_inbox: str) -> bytes:
+    """The bytes at a resolved path inside the inbox, never through a link: a last component
+    that became a link since it was resolved is not followed, and the file actually opened
+    must lie inside ``real_inbox`` (a folder above it swapped for a link leaving the inbox
+    after the scan is caught here, with no window between the check and the read).
+
+    :raises LeavesInbox: the opened file lies outside the inbox (it is not read).
+    """
     fd = os.open(real, os.O_RDONLY | getattr(os, "O_NOFOLLOW", 0) | getattr(os, "O_CLOEXEC", 0))
     with open(fd, "rb", closefd=True) as stream:
+        if not within(opened_location(fd, real), real_inbox):
+            raise LeavesInbox(f"{real} lies outside the inbox")
         return stream.read()
+
+
+def opened_location(fd: int, path: str) -> str:
+    """Where the open file ``fd`` lies: its ``/proc/self/fd`` link on Linux (the kernel's
+    own record of the opened file), else ``path`` resolved again."""
+    try:
+        return os.readlink(f"/proc/self/fd/{fd}")
+    except OSError:
+        return os.path.realpath(path)
 
 
 def relative(path: Path, inbox: Path) -> str:
@@ -148,12 +168,12 @@ def relative(path: Path, inbox: Path) -> str:
 def read_inside(path: Path, inbox: Path) -> bytes:
     """The bytes of ``path`` read through its resolved location, only if that is inside the inbox.
 
-    :raises PermissionError: the resolved path leaves the inbox (nothing is opened).
+    :raises LeavesInbox: the resolved path leaves the inbox (nothing is opened).
     """
-    real = os.path.realpath(path)
-    if not within(real, os.path.realpath(inbox)):
-        raise PermissionError(f"{relative(path, inbox)} leaves the inbox")
-    return read_real(real)
+    real, real_inbox = os.path.realpath(path), os.path.realpath(inbox)
+    if not within(real, real_inbox):
+        raise LeavesInbox(f"{relative(path, inbox)} leaves the inbox")
+    return read_real(real, real_inbox)
 
 
 def sha256(data: bytes) -> str:

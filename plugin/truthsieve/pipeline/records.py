@@ -15,7 +15,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from truthsieve.core.labels import SourceCodes
-from truthsieve.pipeline.layout import Note, read_inside, read_real, relative, sha256
+from truthsieve.pipeline.layout import LeavesInbox, Note, read_inside, read_real, relative, sha256
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -177,13 +177,14 @@ class FileCheck:
             notes=[Note(**n) for n in summary.get("notes", [])],
         )
 
-    def _read(self, path: Path, inbox: Path, real: str | None = None) -> tuple[str, bytes | None]:
-        """``path``'s bytes, kept for quarantine; ``real``: its real path, already known to
-        lie inside the inbox (:func:`~truthsieve.pipeline.layout.scan_source`)."""
+    def _read(self, path: Path, inbox: Path, real: str | None = None, real_inbox: str | None = None) -> tuple[str, bytes | None]:
+        """``path``'s bytes, kept for quarantine; ``real``: its real path, found inside the
+        inbox's real path ``real_inbox`` by :func:`~truthsieve.pipeline.layout.scan_source`
+        (the opened file is checked again, :func:`~truthsieve.pipeline.layout.read_real`)."""
         name = relative(path, inbox)
         try:
-            data = read_inside(path, inbox) if real is None else read_real(real)
-        except PermissionError:
+            data = read_inside(path, inbox) if real is None or real_inbox is None else read_real(real, real_inbox)
+        except LeavesInbox:  # a file we may not open (EACCES) is unreadable, not a link
             self.errors.append(ErrorRecord(name, None, None, "link_outside_inbox", "a link whose target lies outside the inbox; not read"))
             return name, None
         except OSError as error:

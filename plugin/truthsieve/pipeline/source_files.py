@@ -121,7 +121,7 @@ def _open_source(inbox: Path, folder: Path, registry: Mapping[str, object], clas
         check.errors.append(ErrorRecord(relative(path, inbox), None, None, code, layout.NOTE_CODES[code]))
     contents = []
     for path, real in zip(entries.label_files, entries.real_files):
-        name, data = check._read(path, inbox, real)
+        name, data = check._read(path, inbox, real, real_inbox)
         if data is not None:
             contents.append((name, data))
             check.inputs.append(InputFile(name, sha256(data), None, source_id, False))
