@@ -241,3 +241,5 @@ def test_category_counts_from_sources_refuse_a_label_outside_the_classes():
 
     with pytest.raises(ValueError, match="not a class index"):
         source_category_counts([(np.array([0, 1]), np.array([0, 2]))], 2, 2)
+    with pytest.raises(ValueError, match="label -1 is not a class index"):  # -1 would count on the item before
+        source_category_counts([(np.array([0, 1]), np.array([0, -1])), (np.array([0, 1]), np.array([0, 1]))], 3, 2)

@@ -67,7 +67,9 @@ def source_category_counts(
     flat = counts.reshape(-1)
     for items, classes in sources:
         values = np.asarray(classes, dtype=np.int64)
-        observed_mask(values, None, n_classes)
+        outside = values[(values < 0) | (values >= n_classes)]  # every label is observed: -1 is no "missing" here
+        if len(outside):
+            raise ValueError(f"label {int(outside[0])} is not a class index in 0..{n_classes - 1}")
         flat[np.asarray(items, dtype=np.int64) * n_classes + values] += 1  # a source labels an item once
     return counts
 
