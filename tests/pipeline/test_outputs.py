@@ -283,3 +283,51 @@ def test_a_rename_that_fails_leaves_no_temporary(tmp_path):
     with pytest.raises(OSError):
         write_atomic(tmp_path / "in_force.json", b"{}")
     assert [p.name for p in tmp_path.iterdir()] == ["in_force.json"] and (tmp_path / "in_force.json").is_dir()
+
+
+# --- canonical JSON: the direct writer against the standard library's indented encoder ---
+
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+_json_scalars = st.none() | st.booleans() | st.integers() | st.floats(allow_nan=False, allow_infinity=False) | st.text()
+_json_values = st.recursive(
+    _json_scalars,
+    lambda inner: st.lists(inner, max_size=4) | st.lists(inner, max_size=4).map(tuple) | st.dictionaries(st.text(max_size=6), inner, max_size=4),
+    max_leaves=30,
+)
+
+
+def _stdlib_canonical(value) -> bytes:
+    """The definition ``dumps_decision`` must match byte for byte (Python's json module)."""
+    return (json.dumps(value, sort_keys=True, indent=2, allow_nan=False, ensure_ascii=False) + "\n").encode()
+
+
+@settings(max_examples=400, deadline=None)
+@given(_json_values)
+def test_dumps_decision_writes_the_standard_librarys_bytes(value):
+    assert dumps_decision(value) == _stdlib_canonical(value)
+
+
+@pytest.mark.parametrize("value", [
+    {"a": float("nan")}, [1, float("inf")], {"x": {1: "int key"}}, {"x": {1: "a", "b": 2}}, {"when": object()}, {"n": True.__class__},
+])
+def test_dumps_decision_raises_or_writes_as_the_standard_library_does(value):
+    """Values outside the direct writer's set (NaN, non-str keys, mixed keys, other
+    objects) go to json.dumps: the same bytes, or the same exception type."""
+    try:
+        expected = _stdlib_canonical(value)
+    except (ValueError, TypeError) as error:
+        with pytest.raises(type(error)):
+            dumps_decision(value)
+    else:
+        assert dumps_decision(value) == expected
+
+
+def test_dumps_decision_keeps_a_published_decision_byte_identical(tmp_path):
+    """A decision as the screen writes it (nested sources, rules, floats, unicode notes)."""
+    decision = {
+        "batch_date": "2026-01-01", "sources": [{"source_id": f"fa\u00efrm-{i}", "gain": i / 7, "rule": {"feature": "moisture", "threshold": -0.0, "above": 1}, "flags": []} for i in range(50)],
+        "mechanism": {"lottery": [{"probability": 1 / 3, "risk": 1e-300}, {"probability": 2 / 3, "risk": 12345678901234567890}]}, "notes": ["line\nbreak \u2028 \"quoted\""],
+    }
+    assert dumps_decision(decision) == _stdlib_canonical(decision)
