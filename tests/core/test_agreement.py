@@ -13,6 +13,7 @@ from truthsieve.core.agreement import (
     batch_agreement,
     category_counts,
     cohen_kappa,
+    cohen_kappas,
     fleiss_kappa,
     fleiss_kappa_of_labels,
     krippendorff_alpha_nominal,
@@ -243,3 +244,34 @@ def test_category_counts_from_sources_refuse_a_label_outside_the_classes():
         source_category_counts([(np.array([0, 1]), np.array([0, 2]))], 2, 2)
     with pytest.raises(ValueError, match="label -1 is not a class index"):  # -1 would count on the item before
         source_category_counts([(np.array([0, 1]), np.array([0, -1])), (np.array([0, 1]), np.array([0, 1]))], 3, 2)
+
+
+@pytest.mark.parametrize("seed", range(40))
+def test_cohen_kappas_of_many_pairs_equal_one_call_per_pair(seed):
+    """One count table for every source gives each pair's kappa float for float as
+    :func:`cohen_kappa` on that pair alone (missing labels, empty pairs, one-label pairs)."""
+    rng = np.random.default_rng(seed)
+    k, n = int(rng.integers(2, 5)), int(rng.integers(1, 25))
+    owner = np.repeat(np.arange(n), rng.integers(0, 30, n))
+    first = rng.integers(-1 if seed % 3 == 0 else 0, k, owner.size)
+    second = np.where(rng.random(owner.size) < rng.random(), first, rng.integers(0, k, owner.size))
+    if seed % 4 == 0:
+        second[owner == 0], first[owner == 0] = 1, 1  # p_e = 1: undefined
+    expected = [cohen_kappa(first[owner == i], second[owner == i], k) for i in range(n)]
+    assert cohen_kappas(owner, first, second, n, k) == expected
+
+
+def test_cohen_kappas_match_scikit_learn():
+    """scikit-learn's cohen_kappa_score (a general-purpose reference library) on each pair."""
+    rng = np.random.default_rng(5)
+    owner = np.repeat(np.arange(6), 50)
+    first = rng.integers(0, 3, owner.size)
+    second = np.where(rng.random(owner.size) < 0.6, first, rng.integers(0, 3, owner.size))
+    got = cohen_kappas(owner, first, second, 6, 3)
+    for i in range(6):
+        assert got[i] == pytest.approx(cohen_kappa_score(first[owner == i], second[owner == i]), abs=1e-12)
+
+
+def test_cohen_kappas_refuse_a_label_outside_the_classes():
+    with pytest.raises(ValueError):
+        cohen_kappas([0, 0], [0, 2], [0, 1], 1, 2)

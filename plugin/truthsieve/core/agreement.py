@@ -48,6 +48,36 @@ def cohen_kappa(first: npt.ArrayLike, second: npt.ArrayLike, n_classes: int | No
     return (observed - chance) / (1.0 - chance)
 
 
+def cohen_kappas(
+    pair: npt.ArrayLike, first: npt.ArrayLike, second: npt.ArrayLike, n_pairs: int, n_classes: int
+) -> list[float | None]:
+    """:func:`cohen_kappa` with ``n_classes`` for many pairs of raters at once, from one
+    count table: label ``t`` belongs to pair ``pair[t]``, with ratings ``first[t]`` and
+    ``second[t]``.
+
+    The same floats as one :func:`cohen_kappa` call per pair: each proportion is a count
+    over the pair's items (what ``np.mean`` of a boolean vector returns, exactly), and
+    chance agreement sums ``p_first(k) p_second(k)`` over ``k = 0..K-1`` in that order.
+    """
+    owner, a, b = (np.asarray(v, dtype=np.int64) for v in (pair, first, second))
+    both = (a >= 0) & (b >= 0)
+    if not both.all():
+        owner, a, b = owner[both], a[both], b[both]
+    observed_mask(np.concatenate([a, b]), None, n_classes)
+    k = n_classes
+    table = np.bincount((owner * k + a) * k + b, minlength=n_pairs * k * k).reshape(n_pairs, k, k)
+    items = table.sum(axis=(1, 2)).astype(np.float64)
+    counted = np.where(items > 0, items, 1.0)
+    observed = np.trace(table, axis1=1, axis2=2) / counted
+    first_share, second_share = table.sum(axis=2) / counted[:, None], table.sum(axis=1) / counted[:, None]
+    chance = np.zeros(n_pairs)
+    for category in range(k):
+        chance = chance + first_share[:, category] * second_share[:, category]
+    defined = (items > 0) & (chance < 1.0)
+    kappa = (observed - chance) / np.where(defined, 1.0 - chance, 1.0)
+    return [float(v) if ok else None for v, ok in zip(kappa, defined)]
+
+
 def category_counts(labels: npt.ArrayLike, labelled: npt.ArrayLike | None = None, n_classes: int = 2) -> npt.NDArray[np.int64]:
     """``(m, K)`` table: how many sources gave item ``j`` class ``k``.
 

@@ -29,7 +29,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 import numpy.typing as npt
 
-from truthsieve.core.agreement import cohen_kappa
+from truthsieve.core.agreement import cohen_kappas
 from truthsieve.core.dawid_skene import DawidSkeneFit
 from truthsieve.core.flags import FLAG_CODES, FLAGS, THRESHOLDS, FlagThresholds, raised_flags
 from truthsieve.core.incentives import SourceIncentive
@@ -111,10 +111,14 @@ def assess_sources(
 
     adjusted = iter(holm_adjust(np.array(p_values)) if p_values else [])
     recall = reliability.recall
+    own_labels = [labels.classes for labels in matrix.sources]
+    kappas = cohen_kappas(
+        np.repeat(np.arange(len(own_labels)), [len(c) for c in own_labels]), np.concatenate(own_labels),
+        fitted_labels[np.concatenate([labels.items for labels in matrix.sources])], len(own_labels), classes,
+    ) if own_labels else []
     reports = []
     for i, source, items, positives, disagreements, incentive, low, high, drift, past in base:
         drift_adjusted = tuple(float(next(adjusted)) if p is not None else None for p in drift)
-        labels = matrix.sources[i]
         report = SourceReport(
             source_id=source,
             weight=float(matrix.source_weights[i]),
@@ -125,7 +129,7 @@ def assess_sources(
             disagreement=incentive.disagreement,
             disagreement_low=low,
             disagreement_high=high,
-            kappa=cohen_kappa(labels.classes, fitted_labels[labels.items], classes),
+            kappa=kappas[i],
             sensitivity=float(reliability.sensitivity[i]),
             specificity=float(reliability.specificity[i]),
             balanced_accuracy=float(reliability.balanced_accuracy[i]),
