@@ -17,6 +17,7 @@ from truthsieve.core.agreement import (
     fleiss_kappa,
     fleiss_kappa_of_labels,
     krippendorff_alpha_nominal,
+    krippendorff_alpha_of_counts,
     krippendorff_alpha_of_labels,
 )
 
@@ -275,3 +276,50 @@ def test_cohen_kappas_match_scikit_learn():
 def test_cohen_kappas_refuse_a_label_outside_the_classes():
     with pytest.raises(ValueError):
         cohen_kappas([0, 0], [0, 2], [0, 1], 1, 2)
+
+
+def _fraction_alpha(counts):
+    """Nominal alpha straight from its definition, in exact fractions: the coincidence
+    matrix o_ck = sum_u n_uc (n_uk - [c == k]) / (m_u - 1) over units with m_u >= 2, then
+    alpha = 1 - (n - 1)(n - sum o_cc) / (n^2 - sum n_c^2) ("Computing Krippendorff's
+    Alpha-Reliability", University of Pennsylvania, 2011)."""
+    from fractions import Fraction
+
+    k = len(counts[0])
+    o = [[Fraction(0)] * k for _ in range(k)]
+    for row in counts:
+        m = sum(row)
+        if m < 2:
+            continue
+        for c in range(k):
+            for d in range(k):
+                o[c][d] += Fraction(row[c] * (row[d] - (c == d)), m - 1)
+    marginals = [sum(o[c]) for c in range(k)]
+    n = sum(marginals)
+    expected = n * n - sum(x * x for x in marginals)
+    return None if expected <= 0 else float(1 - (n - 1) * (n - sum(o[c][c] for c in range(k))) / expected)
+
+
+def _fraction_fleiss(counts):
+    """Fleiss' kappa from its definition in exact fractions ("Measuring nominal scale
+    agreement among many raters", Psychological Bulletin 76(5), 1971)."""
+    from fractions import Fraction
+
+    r, m = sum(counts[0]), len(counts)
+    p_bar = sum(Fraction(sum(x * x for x in row) - r, r * (r - 1)) for row in counts) / m
+    shares = [Fraction(sum(row[c] for row in counts), m * r) for c in range(len(counts[0]))]
+    chance = sum(s * s for s in shares)
+    return None if chance >= 1 else float((p_bar - chance) / (1 - chance))
+
+
+@pytest.mark.parametrize("seed", range(60))
+def test_alpha_and_fleiss_are_the_exact_values_rounded_once(seed):
+    """Brute-force oracle in exact fractions: the float is the exact value, correctly
+    rounded, so it cannot depend on how a machine's SIMD or BLAS kernels order float sums."""
+    rng = np.random.default_rng(seed)
+    k, units = int(rng.integers(2, 5)), int(rng.integers(1, 40))
+    ragged = rng.integers(0, 6, (units, k))
+    assert krippendorff_alpha_of_counts(ragged) == _fraction_alpha(ragged.tolist())  # an unused class adds nothing to either
+    r = int(rng.integers(2, 8))
+    even = np.stack([np.bincount(rng.integers(0, k, r), minlength=k) for _ in range(units)])
+    assert fleiss_kappa(even) == _fraction_fleiss(even.tolist())

@@ -10,6 +10,7 @@ labels and to lay out the count table.
 from __future__ import annotations
 
 from collections.abc import Sequence
+from fractions import Fraction
 from typing import Any
 
 import numpy as np
@@ -113,17 +114,20 @@ def fleiss_kappa(counts: npt.ArrayLike) -> float | None:
     agreement among many raters", Psychological Bulletin 76(5), 1971). None when rows
     differ in count, fewer than two labels per item, or chance agreement is 1.
     """
-    table = np.asarray(counts, dtype=np.float64)
+    table = np.asarray(counts, dtype=np.int64)
     raters = table.sum(axis=1)
     if len(table) == 0 or not np.all(raters == raters[0]) or raters[0] < 2:
         return None
-    r = raters[0]
-    per_item = ((table * table).sum(axis=1) - r) / (r * (r - 1))
-    shares = table.sum(axis=0) / table.sum()
-    chance = float((shares**2).sum())
-    if chance >= 1.0:
+    # Exact in integers, one rounding at the end: the same float on every machine, whatever
+    # order SIMD or BLAS kernels would sum floats in. With m items and N_k labels of class k:
+    # mean P_j = (sum n_jk^2 - m r) / (m r (r - 1)) and sum p_k^2 = sum N_k^2 / (m r)^2.
+    m, r = len(table), int(raters[0])
+    labels = m * r
+    agreement = Fraction(int((table * table).sum()) - labels, labels * (r - 1))
+    chance = Fraction(sum(int(n) ** 2 for n in table.sum(axis=0)), labels * labels)
+    if chance >= 1:
         return None
-    return (float(per_item.mean()) - chance) / (1.0 - chance)
+    return float((agreement - chance) / (1 - chance))
 
 
 def fleiss_kappa_of_labels(labels: npt.ArrayLike, labelled: npt.ArrayLike | None = None, n_classes: int = 2) -> float | None:
@@ -147,7 +151,7 @@ def krippendorff_alpha_nominal(ratings: npt.ArrayLike) -> float | None:
     if len(values) == 0:
         return None
     # counts[u, c]: how many raters gave unit u the value c
-    return _alpha_of_counts(np.stack([(table == v).sum(axis=0) for v in values], axis=1).astype(np.float64))
+    return _alpha_of_counts(np.stack([(table == v).sum(axis=0) for v in values], axis=1).astype(np.int64))
 
 
 def krippendorff_alpha_of_counts(counts: npt.ArrayLike) -> float | None:
@@ -157,11 +161,18 @@ def krippendorff_alpha_of_counts(counts: npt.ArrayLike) -> float | None:
     if table.ndim != 2:
         raise ValueError(f"counts must be an items x categories table, got shape {table.shape}")
     used = np.flatnonzero(table.sum(axis=0) > 0)
-    return _alpha_of_counts(table[:, used].astype(np.float64))
+    return _alpha_of_counts(table[:, used].astype(np.int64))
 
 
-def _alpha_of_counts(counts: npt.NDArray[np.float64]) -> float | None:
-    """Alpha from ``counts[u, c]`` over the values that occur (columns in value order)."""
+def _alpha_of_counts(counts: npt.NDArray[np.int64]) -> float | None:
+    """Alpha from ``counts[u, c]`` over the values that occur (columns in value order).
+
+    Exact in rationals, rounded once, so every machine writes the same float. In the
+    coincidence matrix the ``n`` pairable values and the marginals ``n_c`` (each value's
+    count over units with ``m_u >= 2``) are integers; only the diagonal
+    ``sum_c o_cc = sum_u sum_c n_uc (n_uc - 1) / (m_u - 1)`` is a fraction, summed here per
+    distinct ``m_u``.
+    """
     if counts.shape[1] == 0:
         return None
     pairable = counts.sum(axis=1)
@@ -169,15 +180,15 @@ def _alpha_of_counts(counts: npt.NDArray[np.float64]) -> float | None:
     pairable = pairable[pairable >= 2]
     if len(counts) == 0:
         return None
-    scale = 1.0 / (pairable - 1.0)
-    coincidence = (counts.T * scale) @ counts - np.diag((counts * scale[:, None]).sum(axis=0))
-    marginals = coincidence.sum(axis=1)
-    total = marginals.sum()
-    expected = total**2 - (marginals**2).sum()
+    total = int(pairable.sum())
+    expected = total * total - sum(int(n) ** 2 for n in counts.sum(axis=0))
     if expected <= 0:
         return None
-    observed = total - np.trace(coincidence)
-    return float(1.0 - (total - 1.0) * observed / expected)
+    same = (counts * (counts - 1)).sum(axis=1)  # per unit: ordered pairs of equal values
+    # per unit size m_u (at most the number of sources): float sums of integers below 2**53 are exact in any order
+    same_per_size = np.bincount(pairable, weights=same)
+    diagonal = sum((Fraction(int(same_per_size[q]), int(q) - 1) for q in np.flatnonzero(same_per_size)), Fraction(0))
+    return float(1 - Fraction(total - 1) * (total - diagonal) / expected)
 
 
 def krippendorff_alpha_of_labels(labels: npt.ArrayLike, labelled: npt.ArrayLike | None = None, n_classes: int = 2) -> float | None:
